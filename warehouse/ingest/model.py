@@ -41,6 +41,8 @@ class Layout:
     host_col: int | None = None
     instance_col: int | None = None
     tag_cols: tuple[int, ...] = ()
+    object_col: int | None = None   # long only: optional object column
+    unit_col: int | None = None     # long only: optional unit column
     ignore_cols: tuple[int, ...] = ()
     zone_note: str | None = None
     quote_char: str = '"'
@@ -64,6 +66,19 @@ class Batch:
     idx: np.ndarray      # int32, index into names
     ts: np.ndarray       # int64 microseconds since the epoch, UTC
     value: np.ndarray    # float64, finite
+    rows_read: int = 0
+    rows_loaded: int = 0
+    rows_quarantined: int = 0
+    rejects: list[Reject] = field(default_factory=list)
+
+
+@dataclass
+class WideBatch:
+    """A slice of a wide file: columns[j][r] is names[j] at ts[r]; NaN is a missing sample."""
+
+    names: list[CounterName]
+    ts: np.ndarray              # int64 microseconds since the epoch, UTC, one per row
+    columns: list[np.ndarray]   # float64, one per counter, len(ts) each
     rows_read: int = 0
     rows_loaded: int = 0
     rows_quarantined: int = 0

@@ -1,0 +1,278 @@
+"""The `warehouse` command: parse options, call one library function, render the result."""
+from __future__ import annotations
+
+import functools
+import sys
+from collections.abc import Callable, Sequence
+from pathlib import Path
+from typing import Any
+
+import click
+import duckdb
+
+from warehouse import catalog, migrate as migrations
+from warehouse.render import render_mapping, render_rows
+from warehouse.errors import WarehouseError
+from warehouse.home import init_home, open_warehouse, resolve_home, writer
+
+FORMATS = click.Choice(["table", "json", "csv"])
+
+
+class Ctx:
+    def __init__(self, home: str | None, quiet: bool) -> None:
+        self.home = resolve_home(home)
+        self.quiet = quiet
+
+
+def handle_errors(fn: Callable[..., Any]) -> Callable[..., Any]:
+    """Turn library and database errors into one line and exit code 1."""
+    @functools.wraps(fn)
+    def wrapper(*args: Any, **kwargs: Any) -> Any:
+        try:
+            return fn(*args, **kwargs)
+        except WarehouseError as exc:
+            raise click.ClickException(str(exc)) from exc
+        except duckdb.Error as exc:
+            raise click.ClickException(" ".join(str(exc).split())) from exc
+    return wrapper
+
+
+# -- commands ------------------------------------------------------------------------------------
+@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.option("--home", envvar="WAREHOUSE_HOME", metavar="DIR",
+              help="Warehouse folder (default: $WAREHOUSE_HOME, else ./warehouse-data).")
+@click.option("--quiet", "-q", is_flag=True, help="No progress bars.")
+@click.pass_context
+def cli(ctx: click.Context, home: str | None, quiet: bool) -> None:
+    """Bulk-load performance-counter CSV exports and ask sizing and troubleshooting questions.
+
+    \b
+    Example:
+      warehouse --home ./wh init --zone Europe/Berlin
+      warehouse --home ./wh ingest exports/*.csv --source office-hosts
+    """
+    ctx.obj = Ctx(home, quiet)
+
+
+pass_ctx = click.make_pass_decorator(Ctx)
+
+
+@cli.command()
+@click.option("--zone", default="UTC", show_default=True, help="IANA time zone for showing times and local-time files.")
+@pass_ctx
+@handle_errors
+def init(ctx: Ctx, zone: str) -> None:
+    """Create a warehouse (catalog and folders) in --home.
+
+    \b
+    Example:
+      warehouse --home ./wh init --zone Europe/Berlin
+    """
+    created = init_home(ctx.home, zone=zone)
+    click.echo(f"{'created' if created else 'already a warehouse:'} {ctx.home} (zone {zone})")
+
+
+@cli.command()
+@click.option("--list", "list_", is_flag=True, help="Show applied and pending migrations; apply nothing.")
+@pass_ctx
+@handle_errors
+def migrate(ctx: Ctx, list_: bool) -> None:
+    """Apply pending catalog migrations (opening a warehouse also does this).
+
+    \b
+    Example:
+      warehouse --home ./wh migrate --list
+    """
+    with writer(ctx.home) as con:
+        done = set(migrations.applied(con))
+        for m in migrations.available():
+            state = "applied" if m.version in done else "pending"
+            if list_:
+                click.echo(f"{m.version:04d}_{m.name}  {state}  {m.description}")
+        if not list_:
+            click.echo(f"schema version {max(done) if done else 0}; nothing pending")
+
+
+@cli.command()
+@click.argument("files", nargs=-1, required=True, type=click.Path(path_type=Path))
+@click.option("--source", default="default", show_default=True, help="Name of the collection these files belong to.")
+@click.option("--layout", type=click.Choice(["wide", "counter-paths", "long", "activity"]), help="Force the layout.")
+@click.option("--delimiter", help="Force the field delimiter (e.g. ';' or '\\t').")
+@click.option("--decimal", type=click.Choice([".", ","]), help="Force the decimal mark.")
+@click.option("--time-format", help="iso, mdy, dmy, ymd-utc, epoch_s, epoch_ms or a strptime pattern.")
+@click.option("--tz", help="Zone of local times in the files (default: the warehouse's zone).")
+@click.option("--host", default="", help="Host name for wide files whose headers carry none.")
+@click.option("--cumulative", multiple=True, metavar="GLOB", help="Counters (key globs) that are running totals; stored as per-second rates.")
+@click.option("--replace", is_flag=True, help="Load files again even if the same content was loaded before.")
+@click.option("--format", "fmt", type=click.Choice(["table", "json"]), default="table", show_default=True)
+@pass_ctx
+@handle_errors
+def ingest(ctx: Ctx, files: tuple[Path, ...], source: str, layout: str | None, delimiter: str | None,
+           decimal: str | None, time_format: str | None, tz: str | None, host: str,
+           cumulative: tuple[str, ...], replace: bool, fmt: str) -> None:
+    """Load CSV exports (layout detected per file) into the warehouse.
+
+    Every row is either loaded or kept in quarantine with its file, line and reason.
+
+    \b
+    Example:
+      warehouse --home ./wh ingest exports/*.csv --source office-hosts
+    """
+    from warehouse.ingest.run import IngestOptions, ingest_files
+    delimiter = delimiter.encode().decode("unicode_escape") if delimiter else None
+    options = IngestOptions(source=source, layout=layout, delimiter=delimiter, decimal=decimal,
+                            time_format=time_format, tz=tz, host=host, cumulative=cumulative, replace=replace)
+    results = _with_progress(ctx, files, lambda progress: ingest_files(ctx.home, files, options, progress))
+    _print_ingest(results, fmt)
+    failed = [r for r in results if r.status == "failed"]
+    for r in failed:
+        click.echo(f"Error: {r.message}", err=True)
+    if failed:
+        sys.exit(1)
+
+
+def _with_progress(ctx: Ctx, files: Sequence[Path], job: Callable[[Callable[[str, int], None] | None], Any]) -> Any:
+    if ctx.quiet or not sys.stderr.isatty():
+        return job(None)
+    total = sum(p.stat().st_size for p in files if p.is_file()) or 1
+    with click.progressbar(length=total, label="ingesting", file=sys.stderr) as bar:
+        return job(lambda _path, size: bar.update(size))
+
+
+INGEST_COLUMNS = ["path", "status", "layout", "rows_read", "rows_loaded", "rows_quarantined",
+                  "cells_quarantined", "values_loaded", "counters", "ingest_id", "message"]
+
+
+def _print_ingest(results: Sequence[Any], fmt: str) -> None:
+    rows = [{c: getattr(r, c) for c in INGEST_COLUMNS} for r in results]
+    if fmt == "json":
+        click.echo(render_rows(rows, INGEST_COLUMNS, "json"))
+        return
+    for r in results:
+        if r.status == "loaded":
+            click.echo(f"loaded {r.path} [{r.layout}]: rows_read {r.rows_read} = loaded {r.rows_loaded}"
+                       f" + quarantined {r.rows_quarantined}; {r.values_loaded} values, {r.counters} counters"
+                       + (f", {r.cells_quarantined} bad cells quarantined" if r.cells_quarantined else "")
+                       + (f", {r.wraps} wraps, {r.resets} resets" if r.wraps or r.resets else ""))
+            for w in r.warnings:
+                click.echo(f"  warning: {w}")
+        elif r.status == "skipped":
+            click.echo(f"skipped {r.message}")
+    loaded = [r for r in results if r.status == "loaded"]
+    click.echo(f"{len(loaded)} loaded, {sum(r.status == 'skipped' for r in results)} skipped,"
+               f" {sum(r.status == 'failed' for r in results)} failed;"
+               f" {sum(r.values_loaded for r in loaded)} values;"
+               f" {sum(r.rows_quarantined for r in loaded)} rows quarantined")
+
+
+@cli.command()
+@click.argument("glob", required=False)
+@click.option("--format", "fmt", type=FORMATS, default="table", show_default=True)
+@pass_ctx
+@handle_errors
+def counters(ctx: Ctx, glob: str | None, fmt: str) -> None:
+    """List counters (all, or those whose key matches GLOB, case-insensitive).
+
+    \b
+    Example:
+      warehouse --home ./wh counters '*disk*latency*'
+    """
+    with open_warehouse(ctx.home) as wh:
+        rows = catalog.list_counters(wh, glob)
+    click.echo(render_rows(rows, catalog.COUNTER_COLUMNS, fmt))
+
+
+@cli.command()
+@click.argument("query")
+@click.option("--format", "fmt", type=click.Choice(["table", "csv", "json", "parquet"]), default="table", show_default=True)
+@click.option("--out", type=click.Path(path_type=Path), help="Write the result to FILE instead of the screen.")
+@click.option("--write", is_flag=True, help="Allow statements that change the warehouse.")
+@pass_ctx
+@handle_errors
+def sql(ctx: Ctx, query: str, fmt: str, out: Path | None, write: bool) -> None:
+    """Run SQL over counters, points, samples, quarantine, ingests (read-only unless --write).
+
+    \b
+    Example:
+      warehouse --home ./wh sql "SELECT key, count(*), avg(value) FROM samples GROUP BY key ORDER BY 3 DESC LIMIT 10"
+    """
+    from warehouse.query import run_sql
+    if fmt == "parquet" and out is None:
+        raise click.UsageError("--format parquet needs --out FILE")
+    with open_warehouse(ctx.home, read_only=not write) as wh:
+        table = run_sql(wh, query)
+    if fmt == "parquet":
+        import pyarrow.parquet as pq
+        pq.write_table(table, out)
+        click.echo(f"wrote {table.num_rows} rows to {out}")
+        return
+    rows = table.to_pylist()
+    text = render_rows(rows, table.column_names, fmt) if table.num_columns else "ok"
+    if out:
+        out.write_text(text + "\n", encoding="utf-8")
+        click.echo(f"wrote {table.num_rows} rows to {out}")
+    else:
+        click.echo(text)
+
+
+@cli.command()
+@click.option("--format", "fmt", type=FORMATS, default="table", show_default=True)
+@pass_ctx
+@handle_errors
+def status(ctx: Ctx, fmt: str) -> None:
+    """Sources, counters, files, points, time range, bytes on disk, quarantined rows.
+
+    \b
+    Example:
+      warehouse --home ./wh status --format json
+    """
+    with open_warehouse(ctx.home) as wh:
+        click.echo(render_mapping(catalog.status(wh), fmt))
+
+
+@cli.command()
+@click.option("--fix", is_flag=True, help="Delete orphan files and stale staging folders (never listed files).")
+@click.option("--format", "fmt", type=click.Choice(["table", "json"]), default="table", show_default=True)
+@pass_ctx
+@handle_errors
+def check(ctx: Ctx, fix: bool, fmt: str) -> None:
+    """Check that the catalog and the files on disk agree; list orphans.
+
+    \b
+    Example:
+      warehouse --home ./wh check --fix
+    """
+    with open_warehouse(ctx.home) as wh:
+        report = catalog.check(wh, fix=fix)
+    if fmt == "json":
+        click.echo(render_mapping(report, "json"))
+    else:
+        click.echo("ok: catalog and files agree" if report["ok"] else "problems found:")
+        for key in ("missing", "orphans", "stale_staging"):
+            for item in report[key]:
+                click.echo(f"  {key.replace('_', ' ')}: {item}")
+        if report["fixed"]:
+            click.echo("  orphans and stale staging folders deleted")
+    if report["missing"] or (not report["ok"] and not fix):
+        sys.exit(1)
+
+
+@cli.command()
+@click.option("--scale", type=click.Choice(["small", "large"]), default="small", show_default=True)
+@click.option("--keep-csv", type=click.Path(path_type=Path), help="Also keep the generated CSV files in this folder.")
+@pass_ctx
+@handle_errors
+def demo(ctx: Ctx, scale: str, keep_csv: Path | None) -> None:
+    """Generate the invented demo scenario, load it into --home and show what it holds.
+
+    \b
+    Example:
+      warehouse --home ./demo-wh demo --scale small
+    """
+    from warehouse.demo import run_demo
+    for line in run_demo(ctx.home, scale=scale, keep_csv=keep_csv, quiet=ctx.quiet):
+        click.echo(line)
+
+
+def main() -> None:
+    cli(prog_name="warehouse")

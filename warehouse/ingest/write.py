@@ -1,0 +1,120 @@
+"""Write sorted, day-partitioned Parquet into a staging folder, then move it into place.
+
+Each file holds one day (UTC) of one batch, sorted by (counter_id, ts), so row-group statistics
+let queries skip other counters. Memory is bounded by one batch, whatever the file's size.
+"""
+from __future__ import annotations
+
+import os
+import shutil
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+from warehouse.ingest.model import Reject
+
+US_PER_DAY = 86_400_000_000
+ROW_GROUP = 256 * 1024
+POINTS_SCHEMA = pa.schema([
+    ("ts", pa.timestamp("us", tz="UTC")),
+    ("counter_id", pa.int32()),
+    ("value", pa.float64()),
+])
+QUARANTINE_SCHEMA = pa.schema([
+    ("ingest_id", pa.string()), ("file", pa.string()), ("line", pa.int64()),
+    ("column_name", pa.string()), ("raw", pa.string()), ("reason", pa.string()),
+])
+
+
+@dataclass(frozen=True)
+class WrittenFile:
+    relpath: str       # relative to the home, where it will live once published
+    day: str           # YYYY-MM-DD (UTC)
+    rows: int
+    bytes: int
+
+
+def is_sorted(cid: np.ndarray, ts: np.ndarray) -> bool:
+    """True when (cid, ts) pairs are already in non-decreasing order."""
+    if len(cid) < 2:
+        return True
+    step = cid[1:].astype(np.int64) - cid[:-1]
+    return bool(np.all((step > 0) | ((step == 0) & (ts[1:] >= ts[:-1]))))
+
+
+class PartitionWriter:
+    """Collects batches of (counter_id, ts, value) and writes them as staged Parquet files."""
+
+    def __init__(self, home: Path, ingest_id: str, source_slug: str) -> None:
+        self.home = home
+        self.ingest_id = ingest_id
+        self.source_slug = source_slug
+        self.staging = home / "staging" / ingest_id
+        self.staging.mkdir(parents=True, exist_ok=True)
+        (self.staging / "pid").write_text(str(os.getpid()))
+        self.files: list[WrittenFile] = []
+        self.values = 0
+        self.first_ts: int | None = None
+        self.last_ts: int | None = None
+
+    def add(self, cid: np.ndarray, ts: np.ndarray, value: np.ndarray) -> None:
+        if len(cid) == 0:
+            return
+        if not is_sorted(cid, ts):
+            order = np.lexsort((ts, cid))
+            cid, ts, value = cid[order], ts[order], value[order]
+        self.values += len(cid)
+        lo, hi = int(ts.min()), int(ts.max())
+        self.first_ts = lo if self.first_ts is None else min(self.first_ts, lo)
+        self.last_ts = hi if self.last_ts is None else max(self.last_ts, hi)
+        day = ts // US_PER_DAY
+        if day.min() == day.max():
+            self._write(int(day[0]), cid, ts, value)
+            return
+        for d in np.unique(day):
+            mask = day == d
+            self._write(int(d), cid[mask], ts[mask], value[mask])
+
+    def _write(self, day: int, cid: np.ndarray, ts: np.ndarray, value: np.ndarray) -> None:
+        date = str(np.datetime64(day, "D"))
+        rel = Path("points") / f"source={self.source_slug}" / f"date={date}" / f"{self.ingest_id}-{len(self.files):05d}.parquet"
+        target = self.staging / rel
+        target.parent.mkdir(parents=True, exist_ok=True)
+        table = pa.table([
+            pa.array(ts, pa.int64()).cast(pa.timestamp("us", tz="UTC")),
+            pa.array(cid, pa.int32()),
+            pa.array(value, pa.float64()),
+        ], schema=POINTS_SCHEMA)
+        pq.write_table(table, target, compression="zstd", row_group_size=ROW_GROUP)
+        self.files.append(WrittenFile(rel.as_posix(), date, len(cid), target.stat().st_size))
+
+    def write_quarantine(self, path: str, rejects: list[Reject]) -> str | None:
+        """Stage the quarantine rows of this ingest; returns their future relative path."""
+        if not rejects:
+            return None
+        rel = Path("quarantine") / f"{self.ingest_id}.parquet"
+        target = self.staging / rel
+        target.parent.mkdir(parents=True, exist_ok=True)
+        table = pa.table({
+            "ingest_id": [self.ingest_id] * len(rejects),
+            "file": [path] * len(rejects),
+            "line": [r.line for r in rejects],
+            "column_name": [r.column for r in rejects],
+            "raw": [r.raw for r in rejects],
+            "reason": [r.reason for r in rejects],
+        }, schema=QUARANTINE_SCHEMA)
+        pq.write_table(table, target, compression="zstd")
+        return rel.as_posix()
+
+    def publish(self, extra: list[str]) -> None:
+        """Move staged files into place (same file system: each move is atomic)."""
+        for rel in [f.relpath for f in self.files] + extra:
+            dest = self.home / rel
+            dest.parent.mkdir(parents=True, exist_ok=True)
+            os.replace(self.staging / rel, dest)
+
+    def discard(self) -> None:
+        shutil.rmtree(self.staging, ignore_errors=True)
