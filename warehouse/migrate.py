@@ -30,10 +30,14 @@ def available() -> list[Migration]:
         sql = entry.read_text(encoding="utf-8")
         found.append(Migration(int(match[1]), match[2], _description(sql), sql))
     found.sort(key=lambda m: m.version)
-    numbers = [m.version for m in found]
-    if numbers != list(range(1, len(found) + 1)):
-        raise CatalogError(f"migrations are not numbered 1..{len(found)} without gaps: {numbers}")
+    _check_numbers([m.version for m in found])
     return found
+
+
+def _check_numbers(numbers: list[int]) -> None:
+    """Shipped migrations must be numbered 1..N, no gaps, no duplicates."""
+    if numbers != list(range(1, len(numbers) + 1)):
+        raise CatalogError(f"migrations are not numbered 1..{len(numbers)} without gaps: {numbers}")
 
 
 def _description(sql: str) -> str:
