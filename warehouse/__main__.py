@@ -1,0 +1,4 @@
+"""`python -m warehouse` runs the command line."""
+from warehouse.cli import main
+
+main()
