@@ -38,7 +38,7 @@ def quarantine(home: Path) -> list[tuple]:
 def test_wide_values_and_quarantine(home: Path) -> None:
     r = load(home, "wide.csv", host="h1", source="lab")
     assert (r.layout, r.rows_read, r.rows_loaded, r.rows_quarantined, r.cells_quarantined) == ("wide", 6, 3, 3, 1)
-    assert r.values_loaded == 7
+    assert r.values_loaded == 7 and r.duplicates == 1
     got = samples(home)
     assert [(k, v) for k, _, v in got if k == "h1/cpu_util"] == [("h1/cpu_util", 12.5), ("h1/cpu_util", 13.5), ("h1/cpu_util", 15.5)]
     assert [v for k, _, v in got if k == "h1/queue"] == [1.0, 2.0, 4.0]
@@ -73,7 +73,7 @@ def test_counter_paths_dst_in_local_time(home: Path) -> None:
 
 def test_long_any_order_tags_and_duplicates(home: Path) -> None:
     r = load(home, "long.csv")
-    assert (r.layout, r.rows_read, r.rows_loaded, r.rows_quarantined) == ("long", 6, 4, 2)
+    assert (r.layout, r.rows_read, r.rows_loaded, r.rows_quarantined, r.duplicates) == ("long", 6, 4, 2, 1)
     got = samples(home, "key LIKE '%pool=gold%' AND counter LIKE 'read_latency%'")
     assert [(t, v) for _, t, v in got] == [(utc("2026-03-02 08:00:00"), 4.5), (utc("2026-03-02 08:01:00"), 4.25)]
     silver = samples(home, "key LIKE '%pool=silver%'")

@@ -92,14 +92,19 @@ def init_home(home: Path, *, zone: str = "UTC") -> bool:
 
 
 @contextmanager
-def writer(home: Path, *, create: bool = False) -> Iterator[duckdb.DuckDBPyConnection]:
-    """A short read-write connection to the catalog, migrated; closed on exit."""
+def writer(home: Path, *, create: bool = False, migrated: bool = False) -> Iterator[duckdb.DuckDBPyConnection]:
+    """A short read-write connection to the catalog, migrated; closed on exit.
+
+    `migrated=True` skips the schema check for callers that already made one (an ingest opens
+    the catalog several times per file; each check costs a query).
+    """
     catalog = home / CATALOG
     if not catalog.exists() and not create:
         raise CatalogError(f"no warehouse at {home}: run `warehouse --home {home} init` first")
     con = _connect(catalog, read_only=False)
     try:
-        migrate(con)
+        if not migrated:
+            migrate(con)
         yield con
     finally:
         con.close()

@@ -39,6 +39,7 @@ DELIMITERS: tuple[str, ...] = (",", ";", "\t", "|")
 
 _MAX_ROWS = 1000          # sample rows parsed per delimiter; enough to see consistency
 _MAX_TIME_SAMPLES = 200   # time cells handed to the format guesser
+_MAX_BODY_LINES = 2000    # lines after the header that detection looks at; more only costs time
 _BINARY_SHARE = 0.10      # control/undecodable characters above this share mean "not text"
 
 _LINE_BREAK = re.compile(r"\r\n|\r|\n")
@@ -522,7 +523,7 @@ def detect(path: str | os.PathLike[str], *, layout: str | None = None,
 
     candidates = (forced_delimiter,) if forced_delimiter else DELIMITERS
     header = _find_header(lines, candidates, where, truncated)
-    body = lines[header.index + 1:]
+    body = lines[header.index + 1:header.index + 1 + _MAX_BODY_LINES]
     chosen = forced_delimiter or header.sep_hint or _choose_delimiter(header.text, body)
     header_line = header.index + 1
     columns = _clean(_split(header.text, chosen), header.hashed)

@@ -81,6 +81,7 @@ def resolve_counters(con: duckdb.DuckDBPyConnection, source: int, names: list[Co
         "unit": [n.unit for n in names], "kind": kinds,
         "key": [make_key(n) for n in names],
     })
+    con.complete()  # a half-read result from the caller would block register()
     con.register("wanted_counters", wanted)
     try:
         con.execute("""

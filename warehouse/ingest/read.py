@@ -136,6 +136,7 @@ class FileReader:
         self.log = RejectLog()
         self.warnings: list[str] = []
         self._row_base = 0
+        self._names: list[CounterName] | None = None
 
     def rejects(self) -> list[Reject]:
         return self.log.finish(self.path, self.layout)
@@ -209,6 +210,12 @@ class FileReader:
 
     # -- wide kinds -------------------------------------------------------------------------
     def wide_names(self) -> list[CounterName]:
+        """The counters a wide header names (computed once; repeated headers are warned about)."""
+        if self._names is None:
+            self._names = self._header_names()
+        return self._names
+
+    def _header_names(self) -> list[CounterName]:
         lay = self.layout
         names: list[CounterName] = []
         seen: dict[tuple[str, str, str, str], int] = {}
@@ -359,7 +366,8 @@ class FileReader:
             if not text.strip():
                 continue
             self.counts.rows_read += 1
-            fields = next(csv.reader([text], delimiter=self.layout.delimiter))
+            fields = (text.split(self.layout.delimiter) if '"' not in text
+                      else next(csv.reader([text], delimiter=self.layout.delimiter)))
             if section is None or len(fields) != len(section.columns):
                 expected = len(section.columns) if section else 0
                 self.log.lines.append((no, "", text[:2000], f"expected {expected} fields, found {len(fields)}"))

@@ -10,6 +10,7 @@ from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
 
+import duckdb
 import numpy as np
 
 from warehouse.errors import BadInputError, WarehouseError
@@ -50,6 +51,7 @@ class FileResult:
     cells_quarantined: int = 0
     values_loaded: int = 0
     counters: int = 0
+    duplicates: int = 0
     wraps: int = 0
     resets: int = 0
     warnings: list[str] = field(default_factory=list)
@@ -76,6 +78,8 @@ def ingest_files(home: Path, paths: Sequence[str | os.PathLike[str]], options: I
         raise WarehouseError(f"no warehouse at {home}: run `warehouse --home {home} init` first")
     if options.tz:
         check_zone(options.tz)
+    with writer(home):
+        pass  # applies pending migrations once; the per-file connections below skip the check
     results = []
     for path in paths:
         try:
@@ -96,6 +100,10 @@ def _size(path: Path) -> int:
         return 0
 
 
+def _ident(name: CounterName) -> tuple[str, str, str, str]:
+    return (name.host, name.object, name.instance, name.counter)
+
+
 class _Loader:
     """State of one file's load: the counter-id cache and the rate states of cumulative counters."""
 
@@ -103,8 +111,9 @@ class _Loader:
         self.home = home
         self.options = options
         self.src = src
-        self.ids: dict[CounterName, int] = {}
+        self.ids: dict[tuple[str, str, str, str], int] = {}
         self.cumulative_ids: set[int] = set()
+        self.seen: set[int] = set()
         self.states: dict[int, RateState] = {}
         self.wraps = 0
         self.resets = 0
@@ -115,22 +124,42 @@ class _Loader:
             return "rate"
         return "rate" if is_cumulative(name.counter) else "gauge"
 
-    def ids_for(self, names: list[CounterName]) -> np.ndarray:
-        new = [n for n in dict.fromkeys(names) if n not in self.ids]
+    def preload(self, con: duckdb.DuckDBPyConnection) -> None:
+        """Known counters of this source, so a file of known counters needs no registration."""
+        for *ident, cid, kind in con.execute(
+                "SELECT host, object, instance, counter, counter_id, kind FROM counter_defs WHERE source_id = ?",
+                [self.src]).fetchall():
+            self.ids[tuple(ident)] = cid
+            if kind == "rate":
+                self.cumulative_ids.add(cid)
+
+    def ids_for(self, names: list[CounterName], con: duckdb.DuckDBPyConnection | None = None) -> np.ndarray:
+        """Catalog ids of `names`; new ones are registered on `con`, else in a short transaction of their own."""
+        new = [n for n in dict.fromkeys(names) if _ident(n) not in self.ids]
         if new:
             kinds = [self._kind(n) for n in new]
             registered = [CounterName(n.host, n.object, n.instance, n.counter,
                                       (n.unit + "/s" if n.unit else "/s") if k == "rate" else n.unit)
                           for n, k in zip(new, kinds)]
-            with writer(self.home) as con:
-                con.execute("BEGIN TRANSACTION")
+            if con is not None:
                 got = resolve_counters(con, self.src, registered, kinds)
-                con.execute("COMMIT")
+            else:
+                with writer(self.home, migrated=True) as own:
+                    own.execute("BEGIN TRANSACTION")
+                    got = resolve_counters(own, self.src, registered, kinds)
+                    own.execute("COMMIT")
             for n, k, cid in zip(new, kinds, got):
-                self.ids[n] = int(cid)
+                self.ids[_ident(n)] = int(cid)
                 if k == "rate":
                     self.cumulative_ids.add(int(cid))
-        return np.array([self.ids[n] for n in names], dtype=np.int32)
+        ids = np.array([self.ids[_ident(n)] for n in names], dtype=np.int32)
+        self.seen.update(ids.tolist())
+        return ids
+
+    @property
+    def used(self) -> int:
+        """How many distinct counters this file named."""
+        return len(self.seen)
 
     def long_arrays(self, batch: Batch | WideBatch) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         if isinstance(batch, WideBatch):
@@ -173,7 +202,12 @@ def _ingest_one(home: Path, path: Path, options: IngestOptions) -> FileResult:
         raise BadInputError("cannot read: no such file" if not path.exists() else "cannot read: not a file",
                             path=str(path))
     digest, size = sha256_of(path)
-    with writer(home) as con:
+    layout = detect(path, layout=options.layout, delimiter=options.delimiter,
+                    decimal=options.decimal, time_format=options.time_format)
+    reader = FileReader(path, layout, zone=options.tz or "UTC", host=options.host)
+    # One short transaction before reading: skip known content, find the source, and register
+    # a wide file's counters (its header names them all).
+    with writer(home, migrated=True) as con:
         done = con.execute("SELECT ingest_id, path FROM ingests WHERE sha256 = ?", [digest]).fetchone()
         zone = con.execute("SELECT value FROM settings WHERE name = 'zone'").fetchone()[0]
         if done and not options.replace:
@@ -182,14 +216,15 @@ def _ingest_one(home: Path, path: Path, options: IngestOptions) -> FileResult:
         con.execute("BEGIN TRANSACTION")
         src = source_id(con, options.source)
         slug = con.execute("SELECT slug FROM sources WHERE source_id = ?", [src]).fetchone()[0]
+        loader = _Loader(home, options, src)
+        loader.preload(con)
+        if layout.kind in ("wide", "counter-paths"):
+            loader.ids_for(reader.wide_names(), con)
         con.execute("COMMIT")
-    layout = detect(path, layout=options.layout, delimiter=options.delimiter,
-                    decimal=options.decimal, time_format=options.time_format)
-    reader = FileReader(path, layout, zone=options.tz or zone, host=options.host)
+    reader.zone = options.tz or zone
     ingest_id = new_ingest_id()
     started = datetime.now(timezone.utc)
     out = PartitionWriter(home, ingest_id, slug)
-    loader = _Loader(home, options, src)
     try:
         for batch in reader.batches():
             out.add(*loader.long_arrays(batch))
@@ -200,8 +235,9 @@ def _ingest_one(home: Path, path: Path, options: IngestOptions) -> FileResult:
             str(path), "loaded", ingest_id=ingest_id, layout=layout.kind,
             rows_read=counts.rows_read, rows_loaded=counts.rows_loaded,
             rows_quarantined=counts.rows_quarantined, cells_quarantined=counts.cells_quarantined,
-            values_loaded=out.values, counters=len(set(loader.ids.values())),
+            values_loaded=out.values, counters=loader.used,
             wraps=loader.wraps, resets=loader.resets, warnings=reader.warnings,
+            duplicates=sum(r.reason.startswith("duplicate") for r in rejects),
         )
         _commit(home, out, result, digest, size, src, started, qfile, options.replace)
     finally:
@@ -218,7 +254,7 @@ def _commit(home: Path, out: PartitionWriter, result: FileResult, digest: str, s
     """Record the ingest and its files and move them into place in one short transaction."""
     extra = [qfile] if qfile else []
     old_files: list[str] = []
-    with writer(home) as con:
+    with writer(home, migrated=True) as con:
         con.execute("BEGIN TRANSACTION")
         try:
             old = [r[0] for r in con.execute("SELECT ingest_id FROM ingests WHERE sha256 = ?", [digest]).fetchall()]
@@ -238,7 +274,7 @@ def _commit(home: Path, out: PartitionWriter, result: FileResult, digest: str, s
                 "INSERT INTO ingests VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, now(), 'loaded', ?)",
                 [result.ingest_id, src, str(Path(result.path).resolve()), digest, size, result.layout,
                  result.rows_read, result.rows_loaded, result.rows_quarantined, result.cells_quarantined,
-                 result.values_loaded, 0, _us_to_dt(out.first_ts), _us_to_dt(out.last_ts), started, qfile])
+                 result.values_loaded, result.duplicates, _us_to_dt(out.first_ts), _us_to_dt(out.last_ts), started, qfile])
             if out.files:
                 con.executemany("INSERT INTO ingest_files VALUES (?, ?, ?, ?, ?)",
                                 [[result.ingest_id, f.relpath, f.day, f.rows, f.bytes] for f in out.files])

@@ -18,6 +18,9 @@ from warehouse.ingest.model import Reject
 
 US_PER_DAY = 86_400_000_000
 ROW_GROUP = 256 * 1024
+# Only counter_id is dictionary-encoded (long runs of one id). For ts and value, zstd alone
+# packs the pages as small or smaller, and their dictionaries cost a third of the write time.
+DICTIONARY_COLUMNS = ["counter_id"]
 POINTS_SCHEMA = pa.schema([
     ("ts", pa.timestamp("us", tz="UTC")),
     ("counter_id", pa.int32()),
@@ -70,13 +73,17 @@ class PartitionWriter:
         lo, hi = int(ts.min()), int(ts.max())
         self.first_ts = lo if self.first_ts is None else min(self.first_ts, lo)
         self.last_ts = hi if self.last_ts is None else max(self.last_ts, hi)
-        day = ts // US_PER_DAY
-        if day.min() == day.max():
-            self._write(int(day[0]), cid, ts, value)
+        first_day, last_day = lo // US_PER_DAY, hi // US_PER_DAY
+        if first_day == last_day:
+            self._write(first_day, cid, ts, value)
             return
-        for d in np.unique(day):
+        day = ts // US_PER_DAY
+        # A batch usually spans a day or two: test those days rather than sorting out unique days.
+        days = range(first_day, last_day + 1) if last_day - first_day < 32 else np.unique(day)
+        for d in days:
             mask = day == d
-            self._write(int(d), cid[mask], ts[mask], value[mask])
+            if mask.any():
+                self._write(int(d), cid[mask], ts[mask], value[mask])
 
     def _write(self, day: int, cid: np.ndarray, ts: np.ndarray, value: np.ndarray) -> None:
         date = str(np.datetime64(day, "D"))
@@ -88,7 +95,8 @@ class PartitionWriter:
             pa.array(cid, pa.int32()),
             pa.array(value, pa.float64()),
         ], schema=POINTS_SCHEMA)
-        pq.write_table(table, target, compression="zstd", row_group_size=ROW_GROUP)
+        pq.write_table(table, target, compression="zstd", row_group_size=ROW_GROUP,
+                       use_dictionary=DICTIONARY_COLUMNS)
         self.files.append(WrittenFile(rel.as_posix(), date, len(cid), target.stat().st_size))
 
     def write_quarantine(self, path: str, rejects: list[Reject]) -> str | None:
