@@ -129,3 +129,11 @@ def test_every_command_has_help_with_example_and_is_in_readme() -> None:
         assert re.search(rf"warehouse( --home \S+)? {name}\b", readme), f"README lacks `warehouse {name}`"
     for macro in re.findall(r"CREATE OR REPLACE MACRO (\w+)", (Path(__file__).parent.parent / "warehouse" / "sql" / "macros.sql").read_text()):
         assert macro in readme, f"README lacks macro {macro}"
+
+
+def test_selectors_match_names_with_slashes_as_typed(wh: Path) -> None:
+    run("--home", str(wh), "ingest", str(DATA / "counterpaths.csv"))
+    for selector in ("*disk sec/transfer*", "*Disk sec\\/Transfer*", "vdi-hv01/PhysicalDisk/0 C:/Avg. Disk sec/Transfer"):
+        out = run("--home", str(wh), "counters", selector, "--format", "json")
+        assert out.exit_code == 0, (selector, out.stderr)
+        assert [r["counter"] for r in json.loads(out.output)] == ["Avg. Disk sec/Transfer"], selector

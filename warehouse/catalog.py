@@ -14,13 +14,24 @@ COUNTER_COLUMNS = ("key", "source", "host", "object", "instance", "counter", "un
                    "n", "first_ts", "last_ts")
 
 
+# Keys escape a '/' inside a name as '\/'; people type "Disk Transfers/sec" as they read it, so
+# selectors are also tried against the key with those escapes undone.
+_PLAIN_KEY = r"replace(replace(key, '\/', '/'), '\\', '\')"
+
+
 def match_counters(wh: Warehouse, selector: str) -> list[int]:
-    """Counter ids whose key equals `selector`, else matches it as a case-insensitive glob."""
-    exact = wh.con.execute("SELECT counter_id FROM counters WHERE key = ? ORDER BY key", [selector]).fetchall()
+    """Counter ids whose key equals `selector`, else matches it as a case-insensitive glob.
+
+    Both the key and its plain form (escapes undone) are tried.
+    """
+    exact = wh.con.execute(
+        f"SELECT counter_id FROM counters WHERE key = $s OR {_PLAIN_KEY} = $s ORDER BY key",
+        {"s": selector}).fetchall()
     if exact:
         return [r[0] for r in exact]
     rows = wh.con.execute(
-        "SELECT counter_id FROM counters WHERE lower(key) GLOB lower(?) ORDER BY key", [selector]).fetchall()
+        f"SELECT counter_id FROM counters WHERE lower(key) GLOB lower($s) OR lower({_PLAIN_KEY}) GLOB lower($s)"
+        " ORDER BY key", {"s": selector}).fetchall()
     if not rows:
         raise UnknownCounterError(_no_match(wh, selector))
     return [r[0] for r in rows]

@@ -45,7 +45,11 @@ def run_demo(home: Path, *, scale: str = "small", keep_csv: Path | None = None,
         files = generate(out, scale=scale)
         yield f"generated {len(files)} CSV files of the invented claims office ({scale}) in {time.monotonic() - started:.1f} s"
         started = time.monotonic()
-        results = ingest_files(home, files, IngestOptions(source=DEMO_SOURCE))
+        # One collector folder per machine; the folder names the host for files whose headers do not.
+        results = []
+        for machine in sorted({f.parent for f in files}):
+            batch = [f for f in files if f.parent == machine]
+            results += ingest_files(home, batch, IngestOptions(source=DEMO_SOURCE, host=machine.name))
         for r in results:
             if r.status == "failed":
                 yield f"  failed: {r.message}"
