@@ -216,6 +216,45 @@ def sql(ctx: Ctx, query: str, fmt: str, out: Path | None, write: bool) -> None:
 
 
 @cli.command()
+@click.argument("selector")
+@click.option("--from", "start", metavar="T", help="Start (date or date-time; local in the warehouse zone unless it has an offset).")
+@click.option("--to", "end", metavar="T", help="End, exclusive.")
+@click.option("--coverage", type=float, default=0.95, show_default=True, help="Share of samples the bound must cover.")
+@click.option("--window", default="all", show_default=True, metavar="all|busiest-hours|HH:MM-HH:MM",
+              help="Size on all buckets, each day's busiest hour(s), or a clock window (warehouse zone).")
+@click.option("--busiest-hours", type=int, default=1, show_default=True, help="Hours per day picked by --window busiest-hours.")
+@click.option("--days", metavar="mon-fri", help="Weekdays to keep, e.g. mon-fri or sat,sun.")
+@click.option("--combine", type=click.Choice(["sum", "mean", "max"]), help="How several counters become one series (default sum for one counter on several hosts).")
+@click.option("--bucket", default="1m", show_default=True, help="Time bucket (mean inside): 15s, 1m, 5m, 1h...")
+@click.option("--capacity", type=float, help="Capacity of the platform in the counter's unit, to compare against.")
+@click.option("--confidence", type=float, default=0.9, show_default=True, help="Confidence of the percentile's interval.")
+@click.option("--format", "fmt", type=FORMATS, default="table", show_default=True)
+@pass_ctx
+@handle_errors
+def size(ctx: Ctx, selector: str, start: str | None, end: str | None, coverage: float, window: str,
+         busiest_hours: int, days: str | None, combine: str | None, bucket: str, capacity: float | None,
+         confidence: float, fmt: str) -> None:
+    """Size capacity for SELECTOR: a distribution-free bound (Cantelli) beside peak, mean and percentiles.
+
+    \b
+    Example:
+      warehouse --home ./wh size 'san01/pool=*/read_iops' --window busiest-hours --days mon-fri
+    """
+    from warehouse.render import render_sizing
+    from warehouse.sizing import SizeRequest, size_selector
+    req = SizeRequest(selector, start, end, coverage, window, days, combine, bucket, capacity, confidence, busiest_hours)
+    with open_warehouse(ctx.home) as wh:
+        result = size_selector(wh, req)
+    if fmt == "table":
+        click.echo(render_sizing(result))
+    elif fmt == "csv":
+        flat = dict(result, cautions=" | ".join(result["cautions"]))
+        click.echo(render_rows([flat], list(flat), "csv"))
+    else:
+        click.echo(render_mapping(result, "json"))
+
+
+@cli.command()
 @click.option("--format", "fmt", type=FORMATS, default="table", show_default=True)
 @pass_ctx
 @handle_errors

@@ -12,10 +12,12 @@ from typing import Any
 def _jsonable(value: Any) -> Any:
     if isinstance(value, (dt.datetime, dt.date)):
         return value.isoformat()
-    if isinstance(value, float) and value != value:
-        return None
     if hasattr(value, "item"):
-        return value.item()
+        value = value.item()
+    if isinstance(value, float) and (value != value or value in (float("inf"), float("-inf"))):
+        return None
+    if isinstance(value, list):
+        return [_jsonable(v) for v in value]
     return value
 
 
@@ -55,3 +57,41 @@ def render_mapping(data: dict[str, Any], fmt: str) -> str:
     return "\n".join(f"{k.ljust(width)}  {_text(v)}" for k, v in data.items())
 
 
+
+
+def _num(value: float | None, unit: str = "") -> str:
+    if value is None:
+        return "-"
+    text = f"{value:,.4g}" if abs(value) < 1e6 else f"{value:,.0f}"
+    return f"{text} {unit}".rstrip()
+
+
+def render_sizing(r: dict[str, Any]) -> str:
+    """The sizing figures side by side, each with what it guarantees."""
+    u = r["unit"] or ""
+    p = r["coverage_target"]
+    pct = f"{p:.4g}".replace("0.", "") if p < 1 else "100"
+    head = (f"size {r['selector']}: {r['counters']} counter(s), combine {r['combine']}, bucket {r['bucket_seconds']} s,"
+            f" window {r['window']}" + (f" ({r['busiest_hours']} h/day)" if r["busiest_hours"] else "")
+            + f", days {r['days']}, {_text(r['first_ts'])} .. {_text(r['last_ts'])}")
+    rows = [
+        ("peak (max)", _num(r["max"], u), "every observed bucket was at or below it; nothing to spare"),
+        ("p99", _num(r["p99"], u), "99% of observed buckets at or below (empirical, this period only)"),
+        ("p95", _num(r["p95"], u), "95% of observed buckets at or below (empirical, this period only)"),
+        (f"p{p * 100:g} [{r['confidence']:.0%} CI]",
+         f"{_num(r['quantile_at_target'], u)} [{_num(r['quantile_ci_low'])}, {_num(r['quantile_ci_high'])}]",
+         f"moving-block bootstrap interval; about {r['n_effective']:.0f} independent of {r['n']} samples"),
+        (f"bound (Cantelli {p:.0%})", _num(r["bound"], u),
+         f"mean + {r['k']:.3g} sd: at least {p:.0%} of samples at or below for ANY distribution"
+         f" (observed {r['coverage_observed']:.2%}; two-sided Chebyshev reading {r['chebyshev_two_sided_coverage']:.1%})"),
+        ("mean", _num(r["mean"], u), "sizing to it leaves the busy part of every day short"),
+        ("sd (population)", _num(r["sd"], u), ""),
+    ]
+    if r["capacity"] is not None:
+        rows.append(("capacity", _num(r["capacity"], u),
+                     f"{r['above_capacity_fraction']:.2%} of samples above it; headroom over the bound {r['headroom']:.1%}"))
+    width = max(len(a) for a, _, _ in rows)
+    vwidth = max(len(b) for _, b, _ in rows)
+    lines = [head, ""] + [f"{a.ljust(width)}  {b.rjust(vwidth)}  {c}".rstrip() for a, b, c in rows]
+    lines += ["", "cautions:"] + [f"  - {c}" for c in r["cautions"]]
+    return "\n".join(lines)

@@ -61,3 +61,5 @@ def install(con: duckdb.DuckDBPyConnection, home: Path, *, temporary: bool) -> N
     con.execute(f"CREATE OR REPLACE {kind} quarantine AS {quarantine}")
     macros = resources.files("warehouse.sql").joinpath("macros.sql").read_text(encoding="utf-8")
     con.execute(macros.replace("CREATE OR REPLACE MACRO", "CREATE OR REPLACE TEMP MACRO"))
+    from warehouse.sql.udf import register
+    register(con)

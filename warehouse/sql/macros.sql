@@ -1,14 +1,27 @@
 -- Statistical macros available on every connection (documented in the README).
 
--- Cantelli's one-sided inequality: mean + k*sd covers at least p of any distribution when
--- k = sqrt(p / (1 - p)).
+-- Cantelli's one-sided inequality: P(X >= mean + k*sd) <= 1/(1+k^2) for any distribution, so
+-- mean + k*sd covers at least p when k = sqrt(p / (1 - p)).
 CREATE OR REPLACE MACRO cantelli_k(p) AS sqrt(p / (1 - p));
 
--- The distribution-free sizing bound mean + k*sd for coverage p.
-CREATE OR REPLACE MACRO cantelli_bound(mean, sd, p) AS mean + sqrt(p / (1 - p)) * sd;
+-- The coverage k^2 / (1 + k^2) that Cantelli guarantees for mean + k*sd.
+CREATE OR REPLACE MACRO cantelli_coverage(k) AS CASE WHEN k <= 0 THEN 0.0 ELSE k * k / (1 + k * k) END;
+
+-- Two-sided Chebyshev: |X - mean| < k*sd for at least 1 - 1/k^2; k for coverage p.
+CREATE OR REPLACE MACRO chebyshev_k(p) AS 1 / sqrt(1 - p);
 
 -- The two-sided Chebyshev coverage 1 - 1/k^2 for the same k (0 when k <= 1).
-CREATE OR REPLACE MACRO chebyshev_two_sided(k) AS greatest(0.0, 1 - 1 / (k * k));
+CREATE OR REPLACE MACRO chebyshev_coverage(k) AS greatest(0.0, 1 - 1 / (k * k));
+
+-- The distribution-free sizing bound mean + k*sd for coverage p, from a mean and an sd.
+CREATE OR REPLACE MACRO cantelli_bound(mean, sd, p) AS mean + sqrt(p / (1 - p)) * sd;
+
+-- Aggregate: the sizing bound of a column (population sd, for which the guarantee holds on the
+-- observed samples).
+CREATE OR REPLACE MACRO sizing_bound(x, p) AS avg(x) + sqrt(p / (1 - p)) * stddev_pop(x);
+
+-- Aggregate: the fraction of x at or below b.
+CREATE OR REPLACE MACRO coverage_at(x, b) AS avg(CASE WHEN x <= b THEN 1.0 ELSE 0.0 END);
 
 -- Start of the fixed-width time bucket of `seconds` that holds ts (aligned to the epoch).
 CREATE OR REPLACE MACRO bucket_start(ts, seconds) AS

@@ -1,0 +1,40 @@
+"""Python functions callable from SQL on every connection (statistics over lists)."""
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import duckdb
+import numpy as np
+
+
+def _finite(values: Sequence[float | None] | None) -> np.ndarray:
+    arr = np.asarray([v for v in (values or []) if v is not None], dtype=np.float64)
+    return arr[np.isfinite(arr)]
+
+
+def quantile_ci(values: list[float | None] | None, p: float, confidence: float) -> dict[str, float | None]:
+    """Empirical p-quantile with a moving-block bootstrap interval (seeded: same data, same interval)."""
+    x = _finite(values)
+    if len(x) == 0 or not 0 < p < 1 or not 0 < confidence < 1:
+        return {"estimate": None, "low": None, "high": None}
+    from warehouse.stats import bounds
+    estimate, low, high = bounds.quantile_ci(x, p, confidence)
+    return {"estimate": _num(estimate), "low": _num(low), "high": _num(high)}
+
+
+def effective_n(values: list[float | None] | None) -> float | None:
+    """Autocorrelation-adjusted sample size of a time-ordered list."""
+    from warehouse.stats import bounds
+    x = _finite(values)
+    return float(bounds.effective_n(x)) if len(x) else None
+
+
+def _num(value: float) -> float | None:
+    return float(value) if np.isfinite(value) else None
+
+
+def register(con: duckdb.DuckDBPyConnection) -> None:
+    """Add the UDFs to `con` (documented in the README's SQL section)."""
+    con.create_function("quantile_ci", quantile_ci, ["DOUBLE[]", "DOUBLE", "DOUBLE"],
+                        "STRUCT(estimate DOUBLE, low DOUBLE, high DOUBLE)", null_handling="special")
+    con.create_function("effective_n", effective_n, ["DOUBLE[]"], "DOUBLE", null_handling="special")
