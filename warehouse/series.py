@@ -42,6 +42,10 @@ class Grid:
         return self.start_us + np.arange(self.n, dtype=np.int64) * self.bucket_us
 
     @property
+    def end_us(self) -> int:
+        return self.start_us + self.n * self.bucket_us
+
+    @property
     def bucket_seconds(self) -> int:
         return self.bucket_us // US
 
@@ -79,14 +83,17 @@ def grid_for(start_us: int, end_us: int, bucket_seconds: int) -> Grid:
     return Grid(first, bucket, max(n, 1))
 
 
-def bucket_block(wh: Warehouse, ids: list[int], grid: Grid, start_us: int, end_us: int) -> np.ndarray:
-    """Bucket means, shape (grid.n, len(ids)), NaN where a counter has no sample in a bucket."""
+def bucket_block(wh: Warehouse, ids: list[int], grid: Grid) -> np.ndarray:
+    """Bucket means, shape (grid.n, len(ids)), NaN where a counter has no sample in a bucket.
+
+    The grid's whole buckets are read, so a bucket holds every sample inside it even where the
+    requested range began or ended inside the bucket."""
     res = wh.con.execute(
         f"""SELECT counter_id, (epoch_us(ts) - $g0) // $b AS k, avg(value) AS v FROM points
             WHERE {_id_filter(ids)} AND ts >= make_timestamptz($a) AND ts < make_timestamptz($z)
             GROUP BY ALL""",
         {"ids": ids, "lo": min(ids), "hi": max(ids), "g0": grid.start_us, "b": grid.bucket_us,
-         "a": start_us, "z": end_us}).fetchnumpy()
+         "a": grid.start_us, "z": grid.end_us}).fetchnumpy()
     out = np.full((grid.n, len(ids)), np.nan)
     if len(res["k"]):
         col = {cid: j for j, cid in enumerate(ids)}
@@ -95,12 +102,12 @@ def bucket_block(wh: Warehouse, ids: list[int], grid: Grid, start_us: int, end_u
     return out
 
 
-def blocks(wh: Warehouse, ids: list[int], grid: Grid, start_us: int, end_us: int,
+def blocks(wh: Warehouse, ids: list[int], grid: Grid,
            size: int = BLOCK_COUNTERS) -> Iterator[tuple[list[int], np.ndarray]]:
     """Aligned bucket means for `ids`, a block of counters at a time."""
     for lo in range(0, len(ids), size):
         part = ids[lo:lo + size]
-        yield part, bucket_block(wh, part, grid, start_us, end_us)
+        yield part, bucket_block(wh, part, grid)
 
 
 @dataclass(frozen=True)
@@ -113,14 +120,14 @@ class Combined:
     counters: int
 
 
-def combine(wh: Warehouse, ids: list[int], grid: Grid, start_us: int, end_us: int, how: str) -> Combined:
+def combine(wh: Warehouse, ids: list[int], grid: Grid, how: str) -> Combined:
     """Sum, mean or max across counters at each bucket, streaming blocks of counters."""
     if how not in {"sum", "mean", "max"}:
         raise WarehouseError(f"unknown combine {how!r}: use sum, mean or max")
     total = np.zeros(grid.n)
     peak = np.full(grid.n, -np.inf)
     present = np.zeros(grid.n, dtype=np.int64)
-    for _, block in blocks(wh, ids, grid, start_us, end_us):
+    for _, block in blocks(wh, ids, grid):
         seen = ~np.isnan(block)
         present += seen.sum(axis=1)
         total += np.where(seen, block, 0.0).sum(axis=1)

@@ -75,7 +75,7 @@ def size_selector(wh: Warehouse, req: SizeRequest) -> dict[str, Any]:
         raise WarehouseError(f"empty time range: --to {req.end} is not after --from {req.start}")
     lo, hi = time_range(wh, ids, start, end)
     grid = grid_for(lo, hi, parse_duration(req.bucket))
-    combined = combine(wh, ids, grid, lo, hi, how)
+    combined = combine(wh, ids, grid, how)
     mask, window_label = select_window(combined, wh.zone, req)
     x = combined.values[mask]
     x = x[np.isfinite(x)]
