@@ -255,6 +255,52 @@ def size(ctx: Ctx, selector: str, start: str | None, end: str | None, coverage: 
 
 
 @cli.command()
+@click.argument("target", required=False)
+@click.option("--against", metavar="GLOB", help="Counters to rank (default: every other counter).")
+@click.option("--from", "start", metavar="T", help="Start (local in the warehouse zone unless it has an offset).")
+@click.option("--to", "end", metavar="T", help="End, exclusive.")
+@click.option("--bucket", default="1m", show_default=True, help="Time bucket (mean inside): 15s, 1m, 5m...")
+@click.option("--method", type=click.Choice(["spearman", "pearson"]), default="spearman", show_default=True)
+@click.option("--max-lag", type=int, default=0, show_default=True, help="Also try each counter shifted by -N..+N buckets.")
+@click.option("--top", type=int, default=None, help="How many to show (default 25, or 50 pairs).")
+@click.option("--fdr", type=float, default=0.05, show_default=True, help="False discovery rate for the q-value mark.")
+@click.option("--min-overlap", type=int, default=30, show_default=True, help="Fewest shared buckets for a test.")
+@click.option("--pairs", is_flag=True, help="Strongest pairs among the --against counters instead of a target.")
+@click.option("--rhythm", type=click.Choice(["keep", "remove"]), default="keep", show_default=True,
+              help="remove: subtract each series' hour-of-week median first, so the shared office rhythm does not"
+                   " dominate (it also removes anything scheduled weekly at the same hour).")
+@click.option("--format", "fmt", type=FORMATS, default="table", show_default=True)
+@pass_ctx
+@handle_errors
+def correlate(ctx: Ctx, target: str | None, against: str | None, start: str | None, end: str | None, bucket: str,
+              method: str, max_lag: int, top: int | None, fdr: float, min_overlap: int, pairs: bool, rhythm: str,
+              fmt: str) -> None:
+    """Rank counters by how they move with TARGET (or the strongest --pairs), with lead/lag and FDR control.
+
+    lag +k means the counter moves k buckets BEFORE the target (it leads).
+
+    \b
+    Example:
+      warehouse --home ./wh correlate 'vdi-hv02/Processor/_Total/*' --max-lag 5 --top 10
+    """
+    from warehouse.correlate import CorrelateRequest, correlate_pairs, correlate_target
+    from warehouse.render import render_correlations, render_pairs
+    if bool(target) == pairs:
+        raise click.UsageError("give a TARGET, or --pairs without one")
+    req = CorrelateRequest(target, against, start, end, bucket, method, max_lag, top or (50 if pairs else 25),
+                           fdr, min_overlap, pairs, rhythm)
+    with open_warehouse(ctx.home) as wh:
+        result = correlate_pairs(wh, req) if pairs else correlate_target(wh, req)
+    rows = result["pairs" if pairs else "results"]
+    if fmt == "json":
+        click.echo(render_mapping(result, "json"))
+    elif fmt == "csv":
+        click.echo(render_rows(rows, list(rows[0]) if rows else ["key"], "csv"))
+    else:
+        click.echo(render_pairs(result) if pairs else render_correlations(result))
+
+
+@cli.command()
 @click.option("--format", "fmt", type=FORMATS, default="table", show_default=True)
 @pass_ctx
 @handle_errors

@@ -8,6 +8,8 @@ import json
 from collections.abc import Sequence
 from typing import Any
 
+from warehouse.timeutil import format_duration
+
 
 def _jsonable(value: Any) -> Any:
     if isinstance(value, (dt.datetime, dt.date)):
@@ -18,6 +20,8 @@ def _jsonable(value: Any) -> Any:
         return None
     if isinstance(value, list):
         return [_jsonable(v) for v in value]
+    if isinstance(value, dict):
+        return {k: _jsonable(v) for k, v in value.items()}
     return value
 
 
@@ -95,3 +99,44 @@ def render_sizing(r: dict[str, Any]) -> str:
     lines = [head, ""] + [f"{a.ljust(width)}  {b.rjust(vwidth)}  {c}".rstrip() for a, b, c in rows]
     lines += ["", "cautions:"] + [f"  - {c}" for c in r["cautions"]]
     return "\n".join(lines)
+
+
+def _bar(r: float, width: int = 12) -> str:
+    cells = int(round(abs(r) * width))
+    return ("#" * cells).ljust(width)
+
+
+def _lag_words(lag: int, bucket_seconds: int) -> str:
+    if lag == 0:
+        return "same time"
+    span = format_duration(abs(lag) * bucket_seconds)
+    return f"leads by {span}" if lag > 0 else f"follows by {span}"
+
+
+def render_correlations(r: dict[str, Any]) -> str:
+    """Ranked suspects with a bar per r, the direction in words, the lag, and the caution."""
+    head = (f"correlate {r['target']} ({r['method']}, bucket {r['bucket_seconds']} s, lags -{r['max_lag']}..+{r['max_lag']},"
+            f" rhythm {'removed' if r['rhythm'] == 'remove' else 'kept'}):"
+            f" {r['tested']} tests over {r['counters_tested']} counters, {r['skipped']} skipped (constant or"
+            f" overlap too short); {r['passing']} pass q < {r['fdr']:g}")
+    rows = [("#", "key", "r", "", "direction", "lag", "n", "n_eff", "q")]
+    for i, row in enumerate(r["results"], 1):
+        rows.append((str(i), row["key"], f"{row['r']:+.3f}", _bar(row["r"]),
+                     "moves with" if row["r"] > 0 else "moves against", _lag_words(row["lag"], r["bucket_seconds"]),
+                     str(row["n"]), f"{row['n_effective']:.0f}",
+                     f"{row['q']:.2g}" + (" *" if row["q"] < r["fdr"] else "")))
+    widths = [max(len(row[i]) for row in rows) for i in range(len(rows[0]))]
+    lines = [head, ""] + ["  ".join(c.ljust(w) for c, w in zip(row, widths)).rstrip() for row in rows]
+    lines += ["", f"* q < {r['fdr']:g} (Benjamini-Hochberg over all {r['tested']} tests; p-values use the"
+              " autocorrelation-adjusted n_eff)", r["lag_convention"]] + [f"caution: {c}" for c in r["cautions"]]
+    return "\n".join(lines)
+
+
+def render_pairs(r: dict[str, Any]) -> str:
+    head = (f"strongest pairs among {r['counters']} counters ({r['method']}, bucket {r['bucket_seconds']} s):"
+            f" {r['tested']} pairs tested")
+    rows = [("#", "a", "b", "r", "n", "q")]
+    rows += [(str(i), p["a"], p["b"], f"{p['r']:+.3f}", str(p["n"]), f"{p['q']:.2g}") for i, p in enumerate(r["pairs"], 1)]
+    widths = [max(len(row[i]) for row in rows) for i in range(len(rows[0]))]
+    lines = [head, ""] + ["  ".join(c.ljust(w) for c, w in zip(row, widths)).rstrip() for row in rows]
+    return "\n".join(lines + [""] + [f"caution: {c}" for c in r["cautions"]])

@@ -26,3 +26,19 @@ CREATE OR REPLACE MACRO coverage_at(x, b) AS avg(CASE WHEN x <= b THEN 1.0 ELSE 
 -- Start of the fixed-width time bucket of `seconds` that holds ts (aligned to the epoch).
 CREATE OR REPLACE MACRO bucket_start(ts, seconds) AS
     to_timestamp(floor(epoch(ts) / seconds) * seconds);
+
+-- Table macro: Pearson r and overlap n of every counter's bucket means against the target key's
+-- (pairwise complete: buckets both have; r is NULL for a constant counter). For ad-hoc use; `warehouse correlate` adds ranks, lags,
+-- autocorrelation-adjusted p-values and false-discovery control.
+CREATE OR REPLACE MACRO correlations(target_key, bucket_seconds) AS TABLE
+    WITH b AS (
+        SELECT counter_id, epoch_us(ts) // (bucket_seconds * 1000000) AS k, avg(value) AS v
+        FROM points GROUP BY ALL),
+    t AS (
+        SELECT b.k, sum(b.v) AS y FROM b JOIN counters c USING (counter_id)
+        WHERE c.key = target_key GROUP BY b.k)
+    SELECT key, CASE WHEN isnan(r) THEN NULL ELSE r END AS r, n FROM (
+        SELECT c.key, corr(b.v, t.y) AS r, count(*) AS n
+        FROM b JOIN t USING (k) JOIN counters c USING (counter_id)
+        WHERE c.key <> target_key
+        GROUP BY c.key);
