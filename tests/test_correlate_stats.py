@@ -1,8 +1,10 @@
 """Correlation ranking: Pearson/Spearman, lags, effective n, p- and q-values, strongest pairs."""
 from __future__ import annotations
 
+import hashlib
 import json
 import math
+import re
 import warnings
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -132,7 +134,9 @@ def test_pairwise_complete_equals_pearsonr_on_shared_rows() -> None:
 
 @settings(max_examples=30, deadline=None)
 @given(seed=st.integers(0, 2**32 - 1), max_lag=st.integers(0, 6), holes=st.floats(0.0, 0.5))
-def test_every_lag_equals_corrcoef_on_explicitly_shifted_arrays(seed: int, max_lag: int, holes: float) -> None:
+def test_every_lag_equals_corrcoef_on_explicitly_shifted_arrays(
+    seed: int, max_lag: int, holes: float,
+) -> None:
     """Source: numpy.corrcoef on x[t - k], y[t] (the lag convention written out), to 1e-12."""
     rng = np.random.default_rng(seed)
     n, m = 60, 5
@@ -155,6 +159,14 @@ def test_every_lag_equals_corrcoef_on_explicitly_shifted_arrays(seed: int, max_l
 # --------------------------------------------------------------------------- published data sets
 
 
+def test_reference_copies_match_the_recorded_sha256() -> None:
+    """Source: tests/reference/SOURCES.md (section added for this file): byte-for-byte copies."""
+    text = (REFERENCE / "SOURCES.md").read_text(encoding="utf-8")
+    recorded = {name: digest for digest, name in re.findall(r"^([0-9a-f]{64})  (\S+)$", text, re.M)}
+    for path in (REFERENCE / "anscombe.csv", REFERENCE / "nist-strd" / "Norris.dat"):
+        assert recorded[path.name] == hashlib.sha256(path.read_bytes()).hexdigest(), path.name
+
+
 def test_anscombe_quartet_all_give_r_0_816() -> None:
     """Source: Anscombe 1973, The American Statistician 27:17-21 (r = 0.816 for all four sets);
     data tests/reference/anscombe.csv, recomputed r per set from SOURCES.md (Anscombe section).
@@ -162,7 +174,9 @@ def test_anscombe_quartet_all_give_r_0_816() -> None:
     The published 0.816 is cut at three decimals: set IV's r is 0.81652, so the check is that every
     set lies within 0.001 of 0.816 and agrees with the recomputed six-decimal values."""
     recomputed = {"I": 0.816421, "II": 0.816237, "III": 0.816287, "IV": 0.816521}
-    rows = [line.split(",") for line in (REFERENCE / "anscombe.csv").read_text(encoding="ascii").splitlines()[1:]]
+    lines = (REFERENCE / "anscombe.csv").read_text(encoding="ascii").splitlines()
+    assert lines[0] == "set,obs,x,y"
+    rows = [line.split(",") for line in lines[1:]]
     assert len(rows) == 44
     for name in ("I", "II", "III", "IV"):
         x = np.array([float(r[2]) for r in rows if r[0] == name])
@@ -250,7 +264,8 @@ def test_p_values_edges() -> None:
 
 
 def test_bretherton_n_eff_formula_and_clipping() -> None:
-    """Source: Bretherton et al. 1999 (J. Climate 12:1990-2009), n (1 - r1x r1y) / (1 + r1x r1y), clipped to [3, n]."""
+    """Source: Bretherton et al. 1999 (J. Climate 12:1990-2009): n (1 - r1x r1y) / (1 + r1x r1y),
+    clipped to [3, n]."""
     got = bretherton_n_eff(np.array([100, 100, 100, 100, 2]), np.array([0.5, 0.99, -0.5, 0.0, 0.5]),
                            np.array([0.5, 0.99, 0.5, 0.7, 0.5]))
     assert got.tolist() == pytest.approx([100 * 0.75 / 1.25, 3.0, 100.0, 100.0, 2.0])
@@ -260,12 +275,14 @@ def test_bretherton_n_eff_formula_and_clipping() -> None:
 
 def test_lag1_autocorrelation_nist_definition_and_gaps() -> None:
     """Source: NIST StRD r(1) definition (SOURCES.md 1.1), certified values for Lew and NumAcc1."""
-    certified = json.loads((REFERENCE / "nist-strd" / "certified.json").read_text(encoding="ascii"))["univariate"]
+    certified = json.loads((REFERENCE / "nist-strd" / "certified.json").read_text(encoding="ascii"))
+    certified = certified["univariate"]
     for name in ("Lew", "NumAcc1"):
         lines = (REFERENCE / "nist-strd" / f"{name}.dat").read_text(encoding="ascii").splitlines()
         x = np.array([float(v) for v in lines[60:] if v.strip()])
         assert float(lag1_autocorrelation(x)) == pytest.approx(certified[name]["certified"]["r1"], rel=1e-13)
-    X = np.column_stack([np.arange(10.0), np.full(10, 3.0), [1, np.nan, 2, np.nan, 3, np.nan, 4, np.nan, 5, np.nan]])
+    gappy = [1, np.nan, 2, np.nan, 3, np.nan, 4, np.nan, 5, np.nan]
+    X = np.column_stack([np.arange(10.0), np.full(10, 3.0), gappy])
     with _no_runtime_warnings():
         r1 = lag1_autocorrelation(X)
     assert r1[0] == pytest.approx(0.7) and r1[1] == 0.0 and r1[2] == 0.0    # no consecutive present pair
@@ -332,7 +349,7 @@ def test_top_pairs_equals_brute_force_corrcoef(holes: float, block: int) -> None
     assert [(p.i, p.j, p.n) for p in scan.pairs] == [(i, j, n) for i, j, _, n in ref[:k]]
     np.testing.assert_allclose([p.r for p in scan.pairs], [r for _, _, r, _ in ref[:k]], rtol=0, atol=1e-12)
     assert all(isinstance(p, Pair) and p.i < p.j for p in scan.pairs)
-    every = top_pairs(X, 10_000, block=block).pairs              # every defined pair, all three block-pair kinds
+    every = top_pairs(X, 10_000, block=block).pairs          # every defined pair, all block-pair kinds
     assert {(p.i, p.j): p.n for p in every} == {(i, j): n for i, j, _, n in ref}
     got = {(p.i, p.j): p.r for p in every}
     assert max(abs(got[(i, j)] - r) for i, j, r, _ in ref) < 1e-12
@@ -374,6 +391,38 @@ def test_top_pairs_handles_an_overlap_far_from_the_column_means() -> None:
     assert scan.tested == 2                                 # (b, c) is constant on its overlap
 
 
+def test_large_offsets_keep_full_precision() -> None:
+    """Source: numpy.corrcoef on the same data minus 1e12 (an exact subtraction here, by Sterbenz's
+    lemma). Mean/sd = 1e12, harder than NIST's NumAcc4 (1e8): centring on a mean summed in float64
+    leaves a residue that a plain standardise-then-GEMM loses about 1e-6 of r to."""
+    rng = np.random.default_rng(12)
+    n, m = 5000, 6
+    base = rng.normal(size=(n, m))
+    base[:, 1] += 0.7 * base[:, 0]
+    X = 1e12 + base
+    reference = np.corrcoef(X - 1e12, rowvar=False)
+    scan = top_pairs(X, 15, block=4)
+    for p in scan.pairs:
+        assert p.r == pytest.approx(reference[p.i, p.j], abs=1e-9)
+    lag = lagged_corr(X[:, 0], X[:, 1:], max_lag=2)
+    assert lag.r[2] == pytest.approx(reference[0, 1:], abs=1e-9)
+
+
+def test_extreme_magnitudes_neither_overflow_nor_underflow() -> None:
+    """Source: numpy.corrcoef on the unscaled data (Pearson r is scale-free)."""
+    rng = np.random.default_rng(13)
+    base = rng.normal(size=(200, 3))
+    base[:, 1] += base[:, 0]
+    reference = np.corrcoef(base, rowvar=False)
+    X = base * np.array([1e300, 1e-300, 1.0])
+    with _no_runtime_warnings():
+        lag = lagged_corr(X[:, 0], X[:, 1:])
+        scan = top_pairs(X, 3)
+    assert lag.r[0] == pytest.approx(reference[0, 1:], abs=1e-12)
+    assert {(p.i, p.j): p.r for p in scan.pairs} == pytest.approx(
+        {(0, 1): reference[0, 1], (0, 2): reference[0, 2], (1, 2): reference[1, 2]}, abs=1e-12)
+
+
 # --------------------------------------------------------------------------- degenerate input
 
 
@@ -381,7 +430,8 @@ def test_constant_columns_give_nan_without_warnings() -> None:
     """Source: definition (Pearson r is undefined when a series has zero variance)."""
     n = 50
     y = np.sin(np.arange(n))
-    X = np.column_stack([np.full(n, 0.1), np.zeros(n), np.full(n, np.nan), np.cos(np.arange(n)), np.full(n, 1e300)])
+    X = np.column_stack([np.full(n, 0.1), np.zeros(n), np.full(n, np.nan), np.cos(np.arange(n)),
+                         np.full(n, 1e300)])
     X[:2, 3] = np.nan
     with _no_runtime_warnings():
         out = lagged_corr(y, X, max_lag=2)

@@ -51,8 +51,6 @@ _BLOCK_BYTES = 32 << 20
 _ILL_CONDITIONED = 1e-6
 # Columns larger than this (or smaller than its inverse) in magnitude are rescaled by a power of two.
 _EXTREME = 2.0**400
-# Prepared column blocks of top_pairs are kept for reuse up to this many bytes (else recomputed).
-_CACHE_BYTES = 1 << 30
 
 
 # --------------------------------------------------------------------------- small helpers
@@ -81,41 +79,117 @@ def _column_blocks(n_rows: int, n_cols: int, width: int | None = None) -> Iterat
         yield slice(start, min(start + width, n_cols))
 
 
+class _Scratch:
+    """Reusable work arrays of n rows, handed out as C-contiguous (n, w) views.
+
+    Large temporaries would otherwise be fresh allocations per column block, and first-touching
+    fresh pages costs as much as the arithmetic on them.
+    """
+
+    def __init__(self, n_rows: int) -> None:
+        self.n = n_rows
+        self._flat: dict[str, np.ndarray] = {}
+
+    def get(self, name: str, width: int, dtype: type = np.float64) -> np.ndarray:
+        size = self.n * width
+        buf = self._flat.get(name)
+        if buf is None or buf.size < size or buf.dtype != dtype:
+            buf = self._flat[name] = np.empty(size, dtype=dtype)
+        return buf[:size].reshape(self.n, width)
+
+
+def _take(scratch: _Scratch | None, name: str, shape: tuple[int, int],
+          dtype: type = np.float64) -> np.ndarray:
+    return np.empty(shape, dtype=dtype) if scratch is None else scratch.get(name, shape[1], dtype)
+
+
+@dataclass(frozen=True)
+class _Summary:
+    """Per-column facts that decide how a column is prepared."""
+    hi: np.ndarray          # (w,) largest present value (-inf when none)
+    lo: np.ndarray          # (w,) smallest present value (+inf when none)
+    count: np.ndarray       # (w,) present values
+    total: np.ndarray       # (w,) sum of present values
+
+    @property
+    def constant(self) -> np.ndarray:
+        """All present values equal (exact test max == min), or none present."""
+        return ~(self.hi > self.lo)
+
+    def take(self, cols: np.ndarray | slice) -> _Summary:
+        return _Summary(self.hi[cols], self.lo[cols], self.count[cols], self.total[cols])
+
+
+def _summarise(X: np.ndarray) -> _Summary:
+    """Max, min, count and sum of the present values of each column.
+
+    Complete columns cost three reductions over the whole width at once (much faster than per
+    narrow block); columns with NaN are then redone in bounded chunks.
+    """
+    n, m = X.shape
+    hi, lo = X.max(axis=0, initial=-np.inf), X.min(axis=0, initial=np.inf)   # NaN if the column has one
+    total = X.sum(axis=0)
+    count = np.full(m, n)
+    holes = np.flatnonzero(np.isnan(hi) | np.isnan(lo))
+    step = max(1, _BLOCK_BYTES // (8 * max(n, 1)))
+    for start in range(0, holes.size, step):
+        chunk = holes[start: start + step]
+        part = X[:, chunk]                               # a copy (fancy indexing)
+        absent = np.isnan(part)
+        count[chunk] = n - absent.sum(axis=0)
+        hi[chunk] = np.fmax.reduce(part, axis=0, initial=-np.inf)
+        lo[chunk] = np.fmin.reduce(part, axis=0, initial=np.inf)
+        part[absent] = 0.0
+        total[chunk] = part.sum(axis=0)
+    return _Summary(hi, lo, count, total)
+
+
 @dataclass(frozen=True)
 class _Columns:
     """A block of columns made ready for the sums: centred, absent entries 0."""
     X0: np.ndarray                  # (n, w) each column (rescaled if extreme) minus its mean; 0 where absent
     present: np.ndarray | None      # (n, w) bool, or None when every entry is present
     count: np.ndarray               # (w,) present values per column
-    constant: np.ndarray            # (w,) bool: all present values equal (exact test max == min), or none present
+    constant: np.ndarray            # (w,) bool: present values all equal (max == min), or none present
 
 
-def _prepare_columns(X: np.ndarray) -> _Columns:
+def _prepare_columns(X: np.ndarray, summary: _Summary | None = None,
+                     scratch: _Scratch | None = None, tag: str = "") -> _Columns:
     """Centre each column of X (n, w) on the mean of its present values (X itself is not modified).
 
     Correlations are scale-free, so a column whose magnitude is extreme (beyond 2^+-400, where sums
     of squares would overflow or underflow) is first multiplied by the power of two that brings its
     largest magnitude to (1/2, 1]; that is exact in floating point. Inputs are finite or NaN.
+    ``summary`` may pass in ``_summarise(X)`` when it is already known; the result lives in
+    ``scratch`` buffers named after ``tag`` when a scratch is given (valid until they are reused).
     """
-    n = X.shape[0]
-    hi, lo = X.max(axis=0, initial=-np.inf), X.min(axis=0, initial=np.inf)   # NaN if the column has one
-    if np.isnan(hi).any() or np.isnan(lo).any():
-        present = ~np.isnan(X)
-        count = present.sum(axis=0)
-        hi, lo = np.fmax.reduce(X, axis=0, initial=-np.inf), np.fmin.reduce(X, axis=0, initial=np.inf)
-        X0 = np.where(present, X, 0.0)
-    else:
-        present, count = None, np.full(X.shape[1], n)
-        X0 = np.array(X, dtype=np.float64, order="C", copy=True)
-    constant = ~(hi > lo)
-    big = np.where(count == 0, 0.0, np.maximum(np.abs(hi), np.abs(lo)))
+    n, w = X.shape
+    sm = _summarise(X) if summary is None else summary
+    count = sm.count
+    big = np.where(count == 0, 0.0, np.maximum(np.abs(sm.hi), np.abs(sm.lo)))
     extreme = (big > _EXTREME) | ((big < 1.0 / _EXTREME) & (big > 0.0))
-    if extreme.any():
-        X0 *= np.where(extreme, np.ldexp(1.0, -np.frexp(big)[1]), 1.0)
-    X0 -= X0.sum(axis=0) / np.maximum(count, 1)
-    if present is not None:
+    scale = np.where(extreme, np.ldexp(1.0, -np.frexp(big)[1]), 1.0) if extreme.any() else None
+    X0 = _take(scratch, tag + "X0", (n, w))
+    present: np.ndarray | None = None
+    if bool((count == n).all()):
+        if scale is None:
+            np.subtract(X, sm.total / max(n, 1), out=X0)            # centred copy in one pass
+        else:
+            np.multiply(X, scale, out=X0)
+            X0 -= X0.sum(axis=0) / max(n, 1)
+    else:
+        present = _take(scratch, tag + "present", (n, w), bool)
+        np.isnan(X, out=present)
+        np.logical_not(present, out=present)
+        X0[...] = 0.0
+        np.copyto(X0, X, where=present)
+        if scale is None:
+            X0 -= sm.total / np.maximum(count, 1)
+        else:
+            X0 *= scale
+            X0 -= X0.sum(axis=0) / np.maximum(count, 1)
         X0 *= present
-    return _Columns(X0=X0, present=present, count=count, constant=constant)
+    return _Columns(X0=X0, present=present, count=count, constant=sm.constant)
 
 
 def _pearson_from_sums(
@@ -149,7 +223,8 @@ def _pearson_exact(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray
     cy = _prepare_columns(np.where(both, y, np.nan))
     dx, dy = cx.X0, cy.X0
     with np.errstate(invalid="ignore", divide="ignore"):
-        r = np.einsum("ij,ij->j", dx, dy) / np.sqrt(np.einsum("ij,ij->j", dx, dx) * np.einsum("ij,ij->j", dy, dy))
+        sxy, sxx, syy = (np.einsum("ij,ij->j", u, v) for u, v in ((dx, dy), (dx, dx), (dy, dy)))
+        r = sxy / np.sqrt(sxx * syy)
     r = np.where((cx.count >= 3) & ~cx.constant & ~cy.constant, np.clip(r, -1.0, 1.0), np.nan)
     return r, cx.count
 
@@ -227,25 +302,33 @@ def rank_columns(X: np.ndarray) -> np.ndarray:
     return out.T
 
 
+def _lag1_block(Xb: np.ndarray, summary: _Summary, scratch: _Scratch) -> np.ndarray:
+    c = _prepare_columns(Xb, summary, scratch)
+    D = c.X0
+    den = np.einsum("ij,ij->j", D, D)
+    num = np.einsum("ij,ij->j", D[1:], D[:-1])      # absent entries are 0 in D, so they drop out
+    pairs = Xb.shape[0] - 1 if c.present is None else (c.present[1:] & c.present[:-1]).sum(axis=0)
+    ok = (c.count >= 3) & (pairs >= 1) & ~c.constant & (den > 0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(ok, np.clip(num / den, -1.0, 1.0), 0.0)
+
+
 def lag1_autocorrelation(X: np.ndarray) -> np.ndarray:
     """Lag-1 autocorrelation of each column: r1 = sum d_t d_{t-1} / sum d_t^2, d = x - mean.
 
     The mean and the denominator use every present value of the column; the numerator sums over
     consecutive buckets that are both present (with no NaN this is the NIST StRD r(1), the same as
     statsmodels' ``acf(x)[1]``). 0 where undefined (fewer than 3 present values, no consecutive
-    present pair, or a constant column). Clipped to [-1, 1]. Accepts (n,) -> float array of shape
-    () or (n, m) -> (m,).
+    present pair, or a constant column). Clipped to [-1, 1]. Accepts (n,) -> a NumPy float, or
+    (n, m) -> (m,).
     """
     a = np.asarray(X, dtype=np.float64)
     A = _as_matrix(a)
-    c = _prepare_columns(A)
-    D = c.X0
-    den = np.einsum("ij,ij->j", D, D)
-    num = np.einsum("ij,ij->j", D[1:], D[:-1])      # absent entries are 0 in D, so they drop out
-    pairs = A.shape[0] - 1 if c.present is None else (c.present[1:] & c.present[:-1]).sum(axis=0)
-    ok = (c.count >= 3) & (pairs >= 1) & ~c.constant & (den > 0)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        r1 = np.where(ok, np.clip(num / den, -1.0, 1.0), 0.0)
+    r1 = np.zeros(A.shape[1])
+    scratch = _Scratch(A.shape[0])
+    summary = _summarise(A)
+    for cols in _column_blocks(A.shape[0], A.shape[1]):
+        r1[cols] = _lag1_block(A[:, cols], summary.take(cols), scratch)
     return r1[0] if a.ndim == 1 else r1
 
 
@@ -283,8 +366,6 @@ def _shifted_targets(y: np.ndarray, lags: np.ndarray) -> np.ndarray:
 class _Target:
     """The shifted, centred target and its per-lag sums, shared by every column block."""
     Y: np.ndarray          # (n, K) shifted target, NaN where absent
-    present: np.ndarray    # (n, K) bool
-    Y0: np.ndarray         # (n, K) centred, 0 where absent
     left: np.ndarray       # (3K, n) rows: present mask, Y0, Y0^2 (the left operand of every GEMM)
     count: np.ndarray      # (K,) present per lag
     sy: np.ndarray         # (K,)
@@ -300,13 +381,14 @@ def _prepare_target(y: np.ndarray, lags: np.ndarray) -> _Target:
     present = ~np.isnan(Y)
     Y0 = np.where(present, Y, 0.0)
     left = np.ascontiguousarray(np.concatenate([present.astype(np.float64), Y0, Y0 * Y0], axis=1).T)
-    return _Target(Y=Y, present=present, Y0=Y0, left=left, count=present.sum(axis=0),
+    return _Target(Y=Y, left=left, count=present.sum(axis=0),
                    sy=Y0.sum(axis=0), syy=np.einsum("ij,ij->j", Y0, Y0), complete=c.present is None,
                    constant=bool(c.constant[0]))
 
 
-def _edge_sums(D: np.ndarray, lags: np.ndarray) -> np.ndarray:
-    """For a complete centred block D (n, w): sum of D^2 over the rows each lag keeps, (K, w).
+def _edge_sums(D: np.ndarray, lags: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """For a complete centred block D (n, w): sum of D^2 over the rows each lag keeps, (K, w),
+    and over all rows, (w,).
 
     Lag k >= 0 keeps rows s < n - k; lag k < 0 keeps rows s >= -k. Computed as the total minus
     cumulative sums over the few excluded edge rows, so it costs one pass plus 2L rows.
@@ -318,13 +400,14 @@ def _edge_sums(D: np.ndarray, lags: np.ndarray) -> np.ndarray:
     tail = np.vstack([np.zeros((1, D.shape[1])), np.cumsum(D[n - e:][::-1] ** 2, axis=0)])
     cut = np.minimum(np.abs(lags), n)
     removed = np.where((lags < 0)[:, None], head[cut], tail[cut])
-    return total - removed
+    return total - removed, total
 
 
-def _lagged_block(t: _Target, Xb: np.ndarray, lags: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def _lagged_block(t: _Target, Xb: np.ndarray, summary: _Summary, lags: np.ndarray,
+                  scratch: _Scratch) -> tuple[np.ndarray, np.ndarray]:
     """r and overlap counts (K, w) of the target against one column block."""
     K = lags.size
-    c = _prepare_columns(Xb)
+    c = _prepare_columns(Xb, summary, scratch)
     X0 = c.X0
     sx_sxy = t.left[: 2 * K] @ X0
     sx, sxy = sx_sxy[:K], sx_sxy[K:]
@@ -332,13 +415,14 @@ def _lagged_block(t: _Target, Xb: np.ndarray, lags: np.ndarray) -> tuple[np.ndar
         # Fast path: overlap counts and target sums depend on the lag only; Sxx from edge rows.
         count = np.broadcast_to(t.count[:, None], (K, Xb.shape[1]))
         sy, syy = t.sy[:, None], t.syy[:, None]
-        sxx = _edge_sums(X0, lags)
-        scale_x = np.einsum("ij,ij->j", X0, X0)[None, :]
+        sxx, total = _edge_sums(X0, lags)
+        scale_x = total[None, :]
     else:
-        mask = np.ones(X0.shape) if c.present is None else c.present.astype(np.float64)
+        mask = scratch.get("mask", X0.shape[1])
+        mask[...] = 1.0 if c.present is None else c.present
         counts_sy_syy = t.left @ mask
         count, sy, syy = counts_sy_syy[:K], counts_sy_syy[K:2 * K], counts_sy_syy[2 * K:]
-        sxx = t.left[:K] @ (X0 * X0)
+        sxx = t.left[:K] @ np.multiply(X0, X0, out=scratch.get("sq", X0.shape[1]))
         scale_x = sxx
     # The target's per-lag sum of squares bounds every overlap's, so it serves as its scale.
     r, refine = _pearson_from_sums(count, sx, sy, sxx, syy, sxy, scale_x, t.syy[:, None])
@@ -371,8 +455,10 @@ def lagged_corr(y: np.ndarray, X: np.ndarray, max_lag: int = 0) -> Lagged:
     t = _prepare_target(yv, lags)
     r = np.empty((lags.size, A.shape[1]))
     n = np.empty((lags.size, A.shape[1]), dtype=np.int64)
+    scratch = _Scratch(A.shape[0])
+    summary = _summarise(A)
     for cols in _column_blocks(A.shape[0], A.shape[1]):
-        r[:, cols], n[:, cols] = _lagged_block(t, A[:, cols], lags)
+        r[:, cols], n[:, cols] = _lagged_block(t, A[:, cols], summary.take(cols), lags, scratch)
     return Lagged(r=r, n=n, lags=lags)
 
 
@@ -462,12 +548,11 @@ class PairScan:
 @dataclass(frozen=True)
 class _Block:
     cols: np.ndarray                 # column indices into X
-    Z: np.ndarray                    # (n, w) centred columns scaled to unit norm; 0 where absent
-    present: np.ndarray | None       # (n, w) bool, None when the block has no NaN
-
-    @property
-    def nbytes(self) -> int:
-        return self.Z.nbytes + (0 if self.present is None else self.present.nbytes)
+    Z: np.ndarray                    # (n, w) centred columns; 0 where absent
+    M: np.ndarray | None             # (n, w) present mask as 0/1 floats, None when the block has no NaN
+    Z2: np.ndarray | None            # (n, w) Z^2, only with M
+    s: np.ndarray                    # (w,) column sums of Z (rounding residue of the centring)
+    ss: np.ndarray                   # (w,) column sums of Z^2
 
 
 def _gather(A: np.ndarray, cols: np.ndarray) -> np.ndarray:
@@ -477,61 +562,56 @@ def _gather(A: np.ndarray, cols: np.ndarray) -> np.ndarray:
     return A[:, cols]
 
 
-def _prepare_block(A: np.ndarray, cols: np.ndarray) -> _Block:
-    c = _prepare_columns(_gather(A, cols))
+def _prepare_block(A: np.ndarray, cols: np.ndarray, summary: _Summary, scratch: _Scratch, tag: str) -> _Block:
+    """One block of scan columns, in ``scratch`` buffers named ``tag`` (valid until the next call)."""
+    c = _prepare_columns(_gather(A, cols), summary.take(cols), scratch, tag)
     Z = c.X0
-    # Unit norm (scan columns are never constant): for complete blocks Z^T Z is then r itself.
-    Z /= np.sqrt(np.einsum("ij,ij->j", Z, Z))
-    return _Block(cols, Z, c.present)
+    s, ss = Z.sum(axis=0), np.einsum("ij,ij->j", Z, Z)
+    if c.present is None:
+        return _Block(cols, Z, None, None, s, ss)
+    M = scratch.get(tag + "M", cols.size)
+    M[...] = c.present
+    return _Block(cols, Z, M, np.multiply(Z, Z, out=scratch.get(tag + "Z2", cols.size)), s, ss)
 
 
-def _masked_sums(Xa: np.ndarray, Ma: np.ndarray | None, Xb: np.ndarray, Mb: np.ndarray | None) -> tuple[np.ndarray, ...]:
-    """Overlap count, Sx, Sy, Sxx, Syy, Sxy for every (column of a, column of b); None mask = all present.
+def _masked_sums(a: _Block, b: _Block) -> tuple[np.ndarray, ...]:
+    """Overlap count, Sx, Sy, Sxx, Syy, Sxy for every (column of a, column of b).
 
     Each is one GEMM of masks and zero-filled data; a side without a mask needs column sums only.
     """
-    Xa2, Xb2 = Xa * Xa, Xb * Xb
-    if Ma is None and Mb is None:
-        raise ValueError("complete block pairs take the direct path")
-    if Ma is None:
-        Mbf = Mb.astype(np.float64)
-        return (np.broadcast_to(Mbf.sum(axis=0), (Xa.shape[1], Xb.shape[1])), Xa.T @ Mbf,
-                np.broadcast_to(Xb.sum(axis=0), (Xa.shape[1], Xb.shape[1])), Xa2.T @ Mbf,
-                np.broadcast_to(Xb2.sum(axis=0), (Xa.shape[1], Xb.shape[1])), Xa.T @ Xb)
-    if Mb is None:
-        count, sy, sx, syy, sxx, sxy = _masked_sums(Xb, Mb, Xa, Ma)
+    shape = (a.cols.size, b.cols.size)
+    if a.M is None:
+        return (np.broadcast_to(b.M.sum(axis=0), shape), a.Z.T @ b.M,
+                np.broadcast_to(b.Z.sum(axis=0), shape), (a.Z * a.Z).T @ b.M,
+                np.broadcast_to(b.Z2.sum(axis=0), shape), a.Z.T @ b.Z)
+    if b.M is None:
+        count, sy, sx, syy, sxx, sxy = _masked_sums(b, a)
         return count.T, sx.T, sy.T, sxx.T, syy.T, sxy.T
-    Maf, Mbf = Ma.astype(np.float64), Mb.astype(np.float64)
-    return Maf.T @ Mbf, Xa.T @ Mbf, Maf.T @ Xb, Xa2.T @ Mbf, Maf.T @ Xb2, Xa.T @ Xb
+    return a.M.T @ b.M, a.Z.T @ b.M, a.M.T @ b.Z, a.Z2.T @ b.M, a.M.T @ b.Z2, a.Z.T @ b.Z
+
+
+def _masked_sums_diagonal(a: _Block) -> tuple[np.ndarray, ...]:
+    """Count, Sx, Sxx, Sxy of a block against itself; Sy = Sx^T and Syy = Sxx^T by symmetry.
+
+    M^T M and Z^T Z use numpy's symmetric (a.T @ a) kernel, so this costs about three GEMMs, not six.
+    """
+    return a.M.T @ a.M, a.Z.T @ a.M, a.Z2.T @ a.M, a.Z.T @ a.Z
 
 
 def _block_pair_r(a: _Block, b: _Block) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """(r, overlap count, needs-exact mask) for every column of block a against every column of b."""
-    if a.present is None and b.present is None:
-        r = a.Z.T @ a.Z if a is b else a.Z.T @ b.Z     # a.T @ a lets numpy use the symmetric kernel
-        count = np.full(r.shape, float(a.Z.shape[0]))
-        return np.clip(r, -1.0, 1.0), count, np.zeros(r.shape, dtype=bool)
-    count, sx, sy, sxx, syy, sxy = _masked_sums(a.Z, a.present, b.Z, b.present)
+    if a.M is None and b.M is None:
+        # One GEMM; the column sums (zero up to the rounding of the centring) make the rest exact.
+        sxy = a.Z.T @ a.Z if a is b else a.Z.T @ b.Z   # a.T @ a lets numpy use the symmetric kernel
+        count = np.full(sxy.shape, float(a.Z.shape[0]))
+        sx, sy, sxx, syy = a.s[:, None], b.s[None, :], a.ss[:, None], b.ss[None, :]
+    elif a is b:
+        count, sx, sxx, sxy = _masked_sums_diagonal(a)
+        sy, syy = sx.T, sxx.T
+    else:
+        count, sx, sy, sxx, syy, sxy = _masked_sums(a, b)
     r, refine = _pearson_from_sums(count, sx, sy, sxx, syy, sxy, sxx, syy)
     return r, count, refine
-
-
-class _BlockCache:
-    """Prepared blocks, kept for reuse while they fit in ``_CACHE_BYTES``; beyond that, rebuilt."""
-
-    def __init__(self, A: np.ndarray, blocks: list[np.ndarray]) -> None:
-        self.A, self.blocks = A, blocks
-        self.kept: dict[int, _Block] = {}
-        self.used = 0
-
-    def get(self, k: int) -> _Block:
-        if k in self.kept:
-            return self.kept[k]
-        b = _prepare_block(self.A, self.blocks[k])
-        if self.used + b.nbytes <= _CACHE_BYTES:
-            self.kept[k] = b
-            self.used += b.nbytes
-        return b
 
 
 class _TopK:
@@ -559,28 +639,24 @@ class _TopK:
         return [Pair(int(self.i[k]), int(self.j[k]), float(self.r[k]), int(self.n[k])) for k in order]
 
 
-def _scan_order(A: np.ndarray, min_overlap: int) -> np.ndarray:
-    """Columns worth scanning (>= min_overlap present values, not constant), complete ones first."""
-    usable = np.zeros(A.shape[1], dtype=bool)
-    complete = np.zeros(A.shape[1], dtype=bool)
-    for cols in _column_blocks(A.shape[0], A.shape[1]):
-        block = A[:, cols]
-        hi, lo = np.fmax.reduce(block, axis=0, initial=-np.inf), np.fmin.reduce(block, axis=0, initial=np.inf)
-        count = (~np.isnan(block)).sum(axis=0)
-        usable[cols] = (count >= max(min_overlap, 3)) & (hi > lo)
-        complete[cols] = count == A.shape[0]
-    return np.concatenate([np.flatnonzero(usable & complete), np.flatnonzero(usable & ~complete)])
+def _scan_order(A: np.ndarray, min_overlap: int) -> tuple[np.ndarray, _Summary]:
+    """Columns worth scanning (>= min_overlap present values, not constant), complete ones first;
+    and the column summary of all of A."""
+    sm = _summarise(A)
+    usable = (sm.count >= max(min_overlap, 3)) & ~sm.constant
+    complete = sm.count == A.shape[0]
+    return np.concatenate([np.flatnonzero(usable & complete), np.flatnonzero(usable & ~complete)]), sm
 
 
 def top_pairs(X: np.ndarray, top: int, *, min_overlap: int = 3, block: int = 512) -> PairScan:
     """The ``top`` pairs of columns (i < j) of ``X`` (n, m) with the largest pairwise-complete |r|.
 
     Works on column blocks of width ``block`` (complete columns are grouped first): a block pair whose
-    columns are all complete costs one GEMM of unit-norm centred columns; otherwise masked GEMMs give
-    the overlap sums (three when one side is complete, six otherwise). Only the current best ``top``
-    pairs are kept, so the result side needs O(block^2 + top) memory, never O(m^2); prepared blocks
-    (one centred float64 copy of the scanned columns) are reused while they fit in 1 GiB and rebuilt
-    per block pair beyond that.
+    columns are all complete costs one GEMM of centred columns; otherwise masked GEMMs give
+    the overlap sums (three when one side is complete, three on a diagonal block, six otherwise).
+    Only the current best ``top`` pairs are kept and two prepared blocks are alive at a time, so
+    memory is O(n * block + block^2 + top), never O(m^2) nor a copy of X. Each off-diagonal block
+    is re-centred when it is visited (about 1/block of the GEMM work).
     Pairs whose overlap is shorter than ``min_overlap`` (at least 3) or constant are not tested.
     P-values are left to the caller (``p_values`` with each pair's n or an effective n).
     """
@@ -588,15 +664,16 @@ def top_pairs(X: np.ndarray, top: int, *, min_overlap: int = 3, block: int = 512
         raise ValueError("top must be >= 0 and block >= 1")
     A = _as_matrix(X)
     m = A.shape[1]
-    order = _scan_order(A, min_overlap)
+    order, summary = _scan_order(A, min_overlap)
     keep = _TopK(top)
     tested = 0
     blocks = [order[s: s + block] for s in range(0, order.size, block)]
-    cache = _BlockCache(A, blocks)
-    for ka in range(len(blocks)):
-        a = cache.get(ka)
-        for kb in range(ka, len(blocks)):
-            b = a if kb == ka else cache.get(kb)
+    scratch = _Scratch(A.shape[0])
+    for ka, cols_a in enumerate(blocks):
+        a = _prepare_block(A, cols_a, summary, scratch, "a")
+        tested += _scan_block_pair(A, a, a, min_overlap, keep)
+        for cols_b in blocks[ka + 1:]:
+            b = _prepare_block(A, cols_b, summary, scratch, "b")
             tested += _scan_block_pair(A, a, b, min_overlap, keep)
     return PairScan(pairs=keep.pairs(), tested=tested, undefined=m * (m - 1) // 2 - tested)
 
