@@ -73,10 +73,11 @@ def format_duration(seconds: float) -> str:
         return f"{seconds:g} s"
     if seconds < 5400:
         return f"{seconds / 60:.3g} min"
-    if seconds < 2 * 86400:
-        hours, rest = divmod(seconds, 3600)
-        return f"{int(hours)} h" + (f" {rest / 60:.0f} min" if rest >= 60 else "")
-    return f"{seconds / 86400:.3g} days"
+    if seconds < 86400 - 30:
+        hours, minutes = divmod(round(seconds / 60), 60)
+        return f"{hours} h" + (f" {minutes} min" if minutes else "")
+    days = f"{seconds / 86400:.3g}"
+    return f"{days} day" if days == "1" else f"{days} days"
 
 
 def local_datetime(us: int, zone: str) -> datetime:
