@@ -301,6 +301,40 @@ def correlate(ctx: Ctx, target: str | None, against: str | None, start: str | No
 
 
 @cli.command()
+@click.argument("selector")
+@click.option("--from", "start", metavar="T", help="Start (local in the warehouse zone unless it has an offset).")
+@click.option("--to", "end", metavar="T", help="End, exclusive.")
+@click.option("--bucket", default="1m", show_default=True, help="Time bucket (mean inside).")
+@click.option("--min-period", default="2m", show_default=True, help="Shortest period to look for.")
+@click.option("--max-period", default="8d", show_default=True, help="Longest period to look for (at most half the range).")
+@click.option("--above", default="p95", show_default=True, metavar="VALUE|pNN|bound", help="Episode threshold.")
+@click.option("--gap", default="5m", show_default=True, help="Episodes closer than this are merged.")
+@click.option("--combine", type=click.Choice(["sum", "mean", "max"]), help="How several counters become one series.")
+@click.option("--format", "fmt", type=FORMATS, default="table", show_default=True)
+@pass_ctx
+@handle_errors
+def patterns(ctx: Ctx, selector: str, start: str | None, end: str | None, bucket: str, min_period: str,
+             max_period: str, above: str, gap: str, combine: str | None, fmt: str) -> None:
+    """Find periodic peaks, episodes above a threshold, the weekday x hour profile and level shifts.
+
+    \b
+    Example:
+      warehouse --home ./wh patterns 'san01/pool=vdi/write_latency_ms' --max-period 2h --above p99
+    """
+    from warehouse.patterns import PatternRequest, find_patterns
+    from warehouse.render import render_patterns
+    req = PatternRequest(selector, start, end, bucket, min_period, max_period, above, gap, combine)
+    with open_warehouse(ctx.home) as wh:
+        result = find_patterns(wh, req)
+    if fmt == "json":
+        click.echo(render_mapping(result, "json"))
+    elif fmt == "csv":
+        click.echo(render_rows(result["periods"], ["seconds", "label", "strength", "p"], "csv"))
+    else:
+        click.echo(render_patterns(result))
+
+
+@cli.command()
 @click.option("--format", "fmt", type=FORMATS, default="table", show_default=True)
 @pass_ctx
 @handle_errors

@@ -8,6 +8,8 @@ import json
 from collections.abc import Sequence
 from typing import Any
 
+import numpy as np
+
 from warehouse.timeutil import format_duration
 
 
@@ -66,7 +68,7 @@ def render_mapping(data: dict[str, Any], fmt: str) -> str:
 def _num(value: float | None, unit: str = "") -> str:
     if value is None:
         return "-"
-    text = f"{value:,.4g}" if abs(value) < 1e6 else f"{value:,.0f}"
+    text = f"{value:,.4g}" if abs(value) < 1000 else f"{value:,.0f}"
     return f"{text} {unit}".rstrip()
 
 
@@ -140,3 +142,45 @@ def render_pairs(r: dict[str, Any]) -> str:
     widths = [max(len(row[i]) for row in rows) for i in range(len(rows[0]))]
     lines = [head, ""] + ["  ".join(c.ljust(w) for c, w in zip(row, widths)).rstrip() for row in rows]
     return "\n".join(lines + [""] + [f"caution: {c}" for c in r["cautions"]])
+
+
+def render_patterns(r: dict[str, Any], *, max_episodes: int = 10) -> str:
+    u = r["unit"] or ""
+    lines = [f"patterns {r['selector']}: {r['counters']} counter(s), combine {r['combine']}, bucket {r['bucket_seconds']} s,"
+             f" {_text(r['first_ts'])} .. {_text(r['last_ts'])}", "", "periods (Fisher's g against an AR(1) background):"]
+    if not r["periods"]:
+        lines.append("  none at p < 0.01")
+    for p in r["periods"]:
+        shown = ", ".join(format_duration(h) for h in p["harmonics"][:4])
+        more = f" and {len(p['harmonics']) - 4} more" if len(p["harmonics"]) > 4 else ""
+        harmonics = f", harmonics {shown}{more}" if p["harmonics"] else ""
+        lines.append(f"  every {p['label']}: {p['strength']:.1%} of the variance, p = {p['p']:.2g},"
+                     f" autocorrelation at that lag {p['acf']:+.2f}{harmonics}")
+    eps = r["episodes"]
+    c = r["episode_clustering"]
+    lines += ["", f"episodes above {_num(r['threshold'], u)} ({r['threshold_kind']}): {len(eps)}"]
+    for e in sorted(eps, key=lambda e: -e["peak"])[:max_episodes]:
+        lines.append(f"  {_text(e['start'])} for {format_duration(e['seconds'])}, peak {_num(e['peak'], u)}")
+    if c.get("hour_p") is not None:
+        busiest_hour = int(np.argmax(c["by_hour"]))
+        busiest_day = c["weekday_names"][int(np.argmax(c["by_weekday"]))]
+        lines.append(f"  starts by hour: p = {c['hour_p']:.2g} (most at {busiest_hour:02d}:00);"
+                     f" by weekday: p = {c['weekday_p']:.2g} (most on {busiest_day})"
+                     + ("; they cluster" if c["clustered"] else ""))
+    lines += ["", "calendar (mean by weekday x hour, warehouse zone):"]
+    lines += _calendar_grid(r["calendar"])
+    lines += ["", "level shifts:"]
+    lines += [f"  {_text(cp['ts'])}: mean {_num(cp['before_mean'], u)} -> {_num(cp['after_mean'], u)}"
+              for cp in r["change_points"]] or ["  none"]
+    lines += ["", "cautions:"] + [f"  - {x}" for x in r["cautions"]]
+    return "\n".join(lines)
+
+
+def _calendar_grid(cells: list[dict[str, Any]]) -> list[str]:
+    days = ["mon", "tue", "wed", "thu", "fri", "sat", "sun"]
+    table = {(c["weekday"], c["hour"]): c["mean"] for c in cells}
+    width = max([len(_num(v)) for v in table.values()] + [3])
+    out = ["  hour " + " ".join(d.rjust(width) for d in days)]
+    for hour in range(24):
+        out.append(f"  {hour:02d}   " + " ".join(_num(table.get((d, hour))).rjust(width) for d in days))
+    return out
