@@ -9,7 +9,7 @@ from pathlib import Path
 import pytest
 
 from warehouse.errors import BusyError
-from warehouse.home import CATALOG, init_home, open_warehouse
+from warehouse.home import CATALOG, init_home
 from warehouse.ingest.run import IngestOptions, ingest_files
 from tests.test_crash import _ingest, _state, _wide_csv
 

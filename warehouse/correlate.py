@@ -16,10 +16,10 @@ import pandas as pd
 from warehouse.catalog import match_counters
 from warehouse.errors import WarehouseError
 from warehouse.home import Warehouse
-from warehouse.series import BLOCK_COUNTERS, Grid, blocks, combine, grid_for, select, time_range
+from warehouse.series import BLOCK_COUNTERS, Grid, blocks, combine, grid_for, select, user_range
 from warehouse.stats import correlate as cs
 from warehouse.stats.rhythm import hour_of_week, remove_rhythm
-from warehouse.timeutil import format_duration, parse_duration, parse_when
+from warehouse.timeutil import format_duration, parse_duration
 
 CAUTION = ("Correlation is not causation: a suspect points where to look, not what caused the symptom."
            " Repeat on other periods before acting.")
@@ -56,11 +56,7 @@ def _check(req: CorrelateRequest) -> None:
 
 
 def _range(wh: Warehouse, req: CorrelateRequest, ids: list[int]) -> tuple[int, int]:
-    start = parse_when(req.start, wh.zone) if req.start else None
-    end = parse_when(req.end, wh.zone) if req.end else None
-    if start is not None and end is not None and end <= start:
-        raise WarehouseError(f"empty time range: --to {req.end} is not after --from {req.start}")
-    return time_range(wh, ids, start, end)
+    return user_range(wh, ids, req.start, req.end)
 
 
 def _keys(wh: Warehouse, ids: list[int]) -> dict[int, str]:

@@ -11,12 +11,12 @@ from scipy import stats as sps
 
 from warehouse.errors import WarehouseError
 from warehouse.home import Warehouse
-from warehouse.series import combine, grid_for, select, time_range
+from warehouse.series import combine, grid_for, select, user_range
 from warehouse.sizing import choose_combine
 from warehouse.stats import bounds
 from warehouse.stats import patterns as ps
 from warehouse.stats.rhythm import hour_of_week, remove_rhythm
-from warehouse.timeutil import DAY_NAMES, format_duration, parse_duration, parse_when
+from warehouse.timeutil import DAY_NAMES, format_duration, parse_duration
 
 ABSENCE = ("Not finding a pattern does not prove there is none: a period longer than a third of the range,"
            " shorter than two buckets, or weaker than the noise can hide.")
@@ -53,11 +53,7 @@ def find_patterns(wh: Warehouse, req: PatternRequest) -> dict[str, Any]:
     counters = select(wh, req.selector)
     how = choose_combine(counters, req.combine)
     ids = [c.counter_id for c in counters]
-    start = parse_when(req.start, wh.zone) if req.start else None
-    end = parse_when(req.end, wh.zone) if req.end else None
-    if start is not None and end is not None and end <= start:
-        raise WarehouseError(f"empty time range: --to {req.end} is not after --from {req.start}")
-    lo, hi = time_range(wh, ids, start, end)
+    lo, hi = user_range(wh, ids, req.start, req.end)
     bucket = parse_duration(req.bucket)
     grid = grid_for(lo, hi, bucket)
     series = combine(wh, ids, grid, how).values

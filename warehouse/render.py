@@ -76,7 +76,6 @@ def render_sizing(r: dict[str, Any]) -> str:
     """The sizing figures side by side, each with what it guarantees."""
     u = r["unit"] or ""
     p = r["coverage_target"]
-    pct = f"{p:.4g}".replace("0.", "") if p < 1 else "100"
     head = (f"size {r['selector']}: {r['counters']} counter(s), combine {r['combine']}, bucket {r['bucket_seconds']} s,"
             f" window {r['window']}" + (f" ({r['busiest_hours']} h/day)" if r["busiest_hours"] else "")
             + f", days {r['days']}, {_text(r['first_ts'])} .. {_text(r['last_ts'])}")

@@ -15,6 +15,7 @@ import numpy as np
 from warehouse.catalog import match_counters
 from warehouse.errors import WarehouseError
 from warehouse.home import Warehouse
+from warehouse.timeutil import parse_when
 
 BLOCK_COUNTERS = 256
 US = 1_000_000
@@ -74,6 +75,16 @@ def time_range(wh: Warehouse, ids: list[int], start_us: int | None, end_us: int 
     if lo is None:
         raise WarehouseError("no samples of the selected counters in the time range")
     return (start_us if start_us is not None else lo, end_us if end_us is not None else hi + 1)
+
+
+def user_range(wh: Warehouse, ids: list[int], start: str | None, end: str | None) -> tuple[int, int]:
+    """--from/--to as typed (local in the warehouse zone unless they carry an offset), checked,
+    with open ends filled from the data."""
+    lo = parse_when(start, wh.zone) if start else None
+    hi = parse_when(end, wh.zone) if end else None
+    if lo is not None and hi is not None and hi <= lo:
+        raise WarehouseError(f"empty time range: --to {end} is not after --from {start}")
+    return time_range(wh, ids, lo, hi)
 
 
 def grid_for(start_us: int, end_us: int, bucket_seconds: int) -> Grid:

@@ -10,10 +10,9 @@ from scipy import stats as sps
 
 from warehouse.errors import WarehouseError
 from warehouse.home import Warehouse
-from warehouse.series import Combined, Counter, combine, grid_for, select, time_range
+from warehouse.series import Combined, Counter, combine, grid_for, select, user_range
 from warehouse.stats import bounds
-from warehouse.timeutil import (format_duration, parse_clock_window, parse_days, parse_duration,
-                                parse_when)
+from warehouse.timeutil import format_duration, parse_clock_window, parse_days, parse_duration
 
 KEYS = ("selector", "counters", "unit", "n", "n_effective", "mean", "sd", "min", "max", "p50", "p95", "p99",
         "coverage_target", "k", "bound", "coverage_observed", "chebyshev_two_sided_coverage",
@@ -69,11 +68,7 @@ def size_selector(wh: Warehouse, req: SizeRequest) -> dict[str, Any]:
     counters = select(wh, req.selector)
     how = choose_combine(counters, req.combine)
     ids = [c.counter_id for c in counters]
-    start = parse_when(req.start, wh.zone) if req.start else None
-    end = parse_when(req.end, wh.zone) if req.end else None
-    if start is not None and end is not None and end <= start:
-        raise WarehouseError(f"empty time range: --to {req.end} is not after --from {req.start}")
-    lo, hi = time_range(wh, ids, start, end)
+    lo, hi = user_range(wh, ids, req.start, req.end)
     grid = grid_for(lo, hi, parse_duration(req.bucket))
     combined = combine(wh, ids, grid, how)
     mask, window_label = select_window(combined, wh.zone, req)
