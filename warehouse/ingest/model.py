@@ -79,6 +79,7 @@ class WideBatch:
     names: list[CounterName]
     ts: np.ndarray              # int64 microseconds since the epoch, UTC, one per row
     columns: list[np.ndarray]   # float64, one per counter, len(ts) each
+    block: np.ndarray | None = None  # the same values as one (counters, rows) array, when read in one piece
     rows_read: int = 0
     rows_loaded: int = 0
     rows_quarantined: int = 0

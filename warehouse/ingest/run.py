@@ -185,16 +185,24 @@ class _Loader:
         row_order = None if np.all(batch.ts[1:] >= batch.ts[:-1]) else np.argsort(batch.ts, kind="stable")
         ts = batch.ts if row_order is None else batch.ts[row_order]
         col_order = np.argsort(ids, kind="stable")
-        value = np.empty(rows * len(ids), dtype=np.float64)
-        for k, j in enumerate(col_order):
-            col = batch.columns[j]
-            value[k * rows:(k + 1) * rows] = col if row_order is None else col[row_order]
-        cid = np.repeat(ids[col_order], rows)
-        tsa = np.tile(ts, len(ids))
-        present = ~np.isnan(value)
-        if not present.all():
-            cid, tsa, value = cid[present], tsa[present], value[present]
-        return cid, tsa, value
+        if batch.block is not None:
+            # Columns already in id order (the usual case) need no copy at all.
+            block = batch.block if np.array_equal(col_order, np.arange(len(ids))) else batch.block[col_order]
+            value = (block if row_order is None else block[:, row_order]).reshape(-1)
+        else:
+            value = np.empty(rows * len(ids), dtype=np.float64)
+            for k, j in enumerate(col_order):
+                col = batch.columns[j]
+                value[k * rows:(k + 1) * rows] = col if row_order is None else col[row_order]
+        missing = np.isnan(value)
+        if not missing.any():
+            return np.repeat(ids[col_order], rows), np.tile(ts, len(ids)), value
+        # Build the kept ids and times directly instead of filtering full-length copies.
+        present = ~missing
+        per_counter = rows - np.count_nonzero(missing.reshape(len(ids), rows), axis=1)
+        cid = np.repeat(ids[col_order], per_counter)
+        tsa = np.broadcast_to(ts, (len(ids), rows))[present.reshape(len(ids), rows)]
+        return cid, tsa, value[present]
 
 
 def _ingest_one(home: Path, path: Path, options: IngestOptions) -> FileResult:

@@ -1,12 +1,15 @@
 """Write sorted, day-partitioned Parquet into a staging folder, then move it into place.
 
 Each file holds one day (UTC) of one batch, sorted by (counter_id, ts), so row-group statistics
-let queries skip other counters. Memory is bounded by one batch, whatever the file's size.
+let queries skip other counters. Memory is bounded by a few batches, whatever the file's size.
+Batches are written on one background thread while the caller reads the next one.
 """
 from __future__ import annotations
 
 import os
 import shutil
+from collections import deque
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -21,6 +24,7 @@ ROW_GROUP = 256 * 1024
 # Only counter_id is dictionary-encoded (long runs of one id). For ts and value, zstd alone
 # packs the pages as small or smaller, and their dictionaries cost a third of the write time.
 DICTIONARY_COLUMNS = ["counter_id"]
+IN_FLIGHT = 1   # batches queued or being written; add() waits beyond that, which bounds memory
 POINTS_SCHEMA = pa.schema([
     ("ts", pa.timestamp("us", tz="UTC")),
     ("counter_id", pa.int32()),
@@ -44,12 +48,21 @@ def is_sorted(cid: np.ndarray, ts: np.ndarray) -> bool:
     """True when (cid, ts) pairs are already in non-decreasing order."""
     if len(cid) < 2:
         return True
-    step = cid[1:].astype(np.int64) - cid[:-1]
-    return bool(np.all((step > 0) | ((step == 0) & (ts[1:] >= ts[:-1]))))
+    before, after = cid[:-1], cid[1:]
+    if not np.all(after >= before):
+        return False
+    # Time may step back only where the counter changes; those places are few, so check them alone.
+    back = np.flatnonzero(ts[1:] < ts[:-1])
+    return bool(np.all(after[back] != before[back]))
 
 
 class PartitionWriter:
-    """Collects batches of (counter_id, ts, value) and writes them as staged Parquet files."""
+    """Collects batches of (counter_id, ts, value) and writes them as staged Parquet files.
+
+    add() hands each batch to a single writer thread, so files keep their order; `files`,
+    `values`, `first_ts` and `last_ts` wait for the queued batches, and re-raise a failed write.
+    The arrays passed to add() must not be changed afterwards.
+    """
 
     def __init__(self, home: Path, ingest_id: str, source_slug: str) -> None:
         self.home = home
@@ -58,21 +71,55 @@ class PartitionWriter:
         self.staging = home / "staging" / ingest_id
         self.staging.mkdir(parents=True, exist_ok=True)
         (self.staging / "pid").write_text(str(os.getpid()))
-        self.files: list[WrittenFile] = []
-        self.values = 0
-        self.first_ts: int | None = None
-        self.last_ts: int | None = None
+        self._files: list[WrittenFile] = []
+        self._values = 0
+        self._first_ts: int | None = None
+        self._last_ts: int | None = None
+        self._pool: ThreadPoolExecutor | None = None
+        self._pending: deque[Future[None]] = deque()
+
+    @property
+    def files(self) -> list[WrittenFile]:
+        self.flush()
+        return self._files
+
+    @property
+    def values(self) -> int:
+        self.flush()
+        return self._values
+
+    @property
+    def first_ts(self) -> int | None:
+        self.flush()
+        return self._first_ts
+
+    @property
+    def last_ts(self) -> int | None:
+        self.flush()
+        return self._last_ts
 
     def add(self, cid: np.ndarray, ts: np.ndarray, value: np.ndarray) -> None:
         if len(cid) == 0:
             return
+        while len(self._pending) >= IN_FLIGHT:
+            self._pending.popleft().result()
+        if self._pool is None:
+            self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="parquet-writer")
+        self._pending.append(self._pool.submit(self._add, cid, ts, value))
+
+    def flush(self) -> None:
+        """Wait until every batch given to add() is written."""
+        while self._pending:
+            self._pending.popleft().result()
+
+    def _add(self, cid: np.ndarray, ts: np.ndarray, value: np.ndarray) -> None:
         if not is_sorted(cid, ts):
             order = np.lexsort((ts, cid))
             cid, ts, value = cid[order], ts[order], value[order]
-        self.values += len(cid)
+        self._values += len(cid)
         lo, hi = int(ts.min()), int(ts.max())
-        self.first_ts = lo if self.first_ts is None else min(self.first_ts, lo)
-        self.last_ts = hi if self.last_ts is None else max(self.last_ts, hi)
+        self._first_ts = lo if self._first_ts is None else min(self._first_ts, lo)
+        self._last_ts = hi if self._last_ts is None else max(self._last_ts, hi)
         first_day, last_day = lo // US_PER_DAY, hi // US_PER_DAY
         if first_day == last_day:
             self._write(first_day, cid, ts, value)
@@ -87,7 +134,7 @@ class PartitionWriter:
 
     def _write(self, day: int, cid: np.ndarray, ts: np.ndarray, value: np.ndarray) -> None:
         date = str(np.datetime64(day, "D"))
-        rel = Path("points") / f"source={self.source_slug}" / f"date={date}" / f"{self.ingest_id}-{len(self.files):05d}.parquet"
+        rel = Path("points") / f"source={self.source_slug}" / f"date={date}" / f"{self.ingest_id}-{len(self._files):05d}.parquet"
         target = self.staging / rel
         target.parent.mkdir(parents=True, exist_ok=True)
         table = pa.table([
@@ -97,7 +144,7 @@ class PartitionWriter:
         ], schema=POINTS_SCHEMA)
         pq.write_table(table, target, compression="zstd", row_group_size=ROW_GROUP,
                        use_dictionary=DICTIONARY_COLUMNS)
-        self.files.append(WrittenFile(rel.as_posix(), date, len(cid), target.stat().st_size))
+        self._files.append(WrittenFile(rel.as_posix(), date, len(cid), target.stat().st_size))
 
     def write_quarantine(self, path: str, rejects: list[Reject]) -> str | None:
         """Stage the quarantine rows of this ingest; returns their future relative path."""
@@ -125,4 +172,8 @@ class PartitionWriter:
             os.replace(self.staging / rel, dest)
 
     def discard(self) -> None:
+        if self._pool is not None:
+            self._pool.shutdown(wait=True, cancel_futures=True)   # nothing may write after the removal
+            self._pool = None
+        self._pending.clear()
         shutil.rmtree(self.staging, ignore_errors=True)
