@@ -107,8 +107,11 @@ def bucket_block(wh: Warehouse, ids: list[int], grid: Grid) -> np.ndarray:
          "a": grid.start_us, "z": grid.end_us}).fetchnumpy()
     out = np.full((grid.n, len(ids)), np.nan)
     if len(res["k"]):
-        col = {cid: j for j, cid in enumerate(ids)}
-        cols = np.fromiter((col[c] for c in res["counter_id"]), dtype=np.int64, count=len(res["counter_id"]))
+        # counter id -> column through a lookup array: one vectorised step, not one per row
+        first = min(ids)
+        column = np.empty(max(ids) - first + 1, dtype=np.int64)
+        column[np.asarray(ids, dtype=np.int64) - first] = np.arange(len(ids))
+        cols = column[np.asarray(res["counter_id"], dtype=np.int64) - first]
         out[np.asarray(res["k"], dtype=np.int64), cols] = np.asarray(res["v"], dtype=np.float64)
     return out
 
