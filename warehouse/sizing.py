@@ -6,7 +6,6 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy import stats as sps
 
 from warehouse.errors import WarehouseError
 from warehouse.home import Warehouse
@@ -161,6 +160,7 @@ def _drift_cautions(combined: Combined, mask: np.ndarray, zone: str) -> list[str
     daily = pd.Series(np.where(mask, combined.values, np.nan)).groupby(np.asarray(local.date)).mean().dropna()
     if len(daily) < 10:
         return []
+    from scipy import stats as sps  # imported here: it costs about a second and few runs need it
     out = []
     rho, p = sps.spearmanr(np.arange(len(daily)), daily.to_numpy())
     if p < 0.01 and abs(rho) >= 0.5:
@@ -186,6 +186,7 @@ def level_shift(daily: np.ndarray, min_side: int = 3) -> tuple[int, float, float
             best = (d, k)
     if best is None or best[0] < 1.0:
         return None
+    from scipy import stats as sps
     k = best[1]
     p = sps.mannwhitneyu(daily[:k], daily[k:]).pvalue
     return (k, float(daily[:k].mean()), float(daily[k:].mean())) if p < 0.001 else None
