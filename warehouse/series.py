@@ -4,13 +4,24 @@ Only the selected counters are read (the Parquet files are sorted by counter, so
 other counters are skipped) and they are read in blocks of counters, so memory is bounded by the
 block, not by how many counters match. Buckets are aligned to the epoch (UTC) and hold the mean
 of the samples inside them.
+
+The reader does not ask DuckDB to group: a GROUP BY over every (counter, bucket) is a hash
+aggregate with millions of groups, and it was most of the time of every analysis. Instead the raw
+columns are read with pyarrow and, because each file is sorted by (counter, time), every bucket of
+a counter is one run of rows whose sum NumPy takes in one pass (np.add.reduceat).
 """
 from __future__ import annotations
 
+import os
 from collections.abc import Iterator
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
+from datetime import datetime, timezone
+from pathlib import Path
 
 import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
 
 from warehouse.catalog import match_counters
 from warehouse.errors import WarehouseError
@@ -19,6 +30,10 @@ from warehouse.timeutil import parse_when
 
 BLOCK_COUNTERS = 256
 US = 1_000_000
+DAY_US = 86_400 * US
+# Files read and reduced at once; pyarrow and NumPy release the GIL while they work.
+READ_THREADS = min(4, os.cpu_count() or 1)
+_EPOCH = datetime(1970, 1, 1, tzinfo=timezone.utc)
 
 
 @dataclass(frozen=True)
@@ -94,34 +109,134 @@ def grid_for(start_us: int, end_us: int, bucket_seconds: int) -> Grid:
     return Grid(first, bucket, max(n, 1))
 
 
-def bucket_block(wh: Warehouse, ids: list[int], grid: Grid) -> np.ndarray:
+class _Files:
+    """The committed Parquet files with their row-group statistics, read once per command.
+
+    Each file is sorted by (counter_id, ts), so the (min, max) of both columns per row group tell
+    which row groups can hold a block of counters inside the grid; the rest are never read."""
+
+    def __init__(self, wh: Warehouse) -> None:
+        self.home = wh.home
+        self.files = wh.con.execute(
+            "SELECT relpath, epoch_us(day::TIMESTAMP) FROM ingest_files ORDER BY relpath").fetchall()
+        self._stats: dict[str, list[tuple[int, int, int, int]]] = {}
+
+    def stats(self, relpath: str) -> list[tuple[int, int, int, int]]:
+        """(counter_id min, max, ts min, max) in UTC microseconds per row group."""
+        got = self._stats.get(relpath)
+        if got is None:
+            meta = pq.ParquetFile(self.home / relpath).metadata
+            names = [meta.schema.column(i).name for i in range(meta.num_columns)]
+            c, t = names.index("counter_id"), names.index("ts")
+            got = []
+            for i in range(meta.num_row_groups):
+                rg = meta.row_group(i)
+                cs, ts = rg.column(c).statistics, rg.column(t).statistics
+                if cs is None or ts is None or not cs.has_min_max or not ts.has_min_max:
+                    got.append((-(2**62), 2**62, -(2**62), 2**62))  # no statistics: always read
+                else:
+                    got.append((cs.min, cs.max, _epoch_us(ts.min), _epoch_us(ts.max)))
+            self._stats[relpath] = got
+        return got
+
+    def wanted(self, lo_id: int, hi_id: int, grid: Grid) -> list[tuple[str, list[int]]]:
+        """Files and row groups that may hold counters lo_id..hi_id inside the grid."""
+        out = []
+        for relpath, day_us in self.files:
+            # a partition holds one UTC day; skip days outside the grid before opening the file
+            if day_us is not None and (day_us >= grid.end_us or day_us + DAY_US <= grid.start_us):
+                continue
+            groups = [i for i, (c0, c1, t0, t1) in enumerate(self.stats(relpath))
+                      if c1 >= lo_id and c0 <= hi_id and t1 >= grid.start_us and t0 < grid.end_us]
+            if groups:
+                out.append((relpath, groups))
+        return out
+
+
+def _epoch_us(value: object) -> int:
+    if isinstance(value, datetime):
+        delta = value - _EPOCH if value.tzinfo else value - _EPOCH.replace(tzinfo=None)
+        return (delta.days * 86_400 + delta.seconds) * US + delta.microseconds
+    return int(value)  # type: ignore[call-overload]
+
+
+def _reduce_file(path: Path, groups: list[int], column: np.ndarray, first: int, grid: Grid
+                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+    """Sum and count per (column, bucket) cell of one file: flat cell index, sums, counts.
+
+    The file is sorted by (counter_id, ts) and `column` maps ids to columns in increasing order,
+    so the cell index is non-decreasing and each cell is one run: np.add.reduceat sums the runs
+    without a hash table."""
+    table = pq.ParquetFile(path).read_row_groups(groups, columns=["counter_id", "ts", "value"], use_threads=False)
+    cid = table.column("counter_id").to_numpy().astype(np.int64, copy=False)
+    ts = table.column("ts").cast(pa.int64()).to_numpy()
+    value = table.column("value").to_numpy()
+    col = column[np.clip(cid - first, 0, len(column) - 1)]
+    keep = (col >= 0) & (cid >= first) & (cid < first + len(column)) & (ts >= grid.start_us) & (ts < grid.end_us)
+    if not keep.all():
+        col, ts, value = col[keep], ts[keep], value[keep]
+    if not len(col):
+        return None
+    cell = col * grid.n + (ts - grid.start_us) // grid.bucket_us
+    starts = np.flatnonzero(np.concatenate(([True], cell[1:] != cell[:-1])))
+    sums = np.add.reduceat(value, starts)
+    counts = np.diff(np.append(starts, len(cell)))
+    return cell[starts], sums, counts
+
+
+def bucket_block(wh: Warehouse, ids: list[int], grid: Grid, files: _Files | None = None) -> np.ndarray:
     """Bucket means, shape (grid.n, len(ids)), NaN where a counter has no sample in a bucket.
 
     The grid's whole buckets are read, so a bucket holds every sample inside it even where the
-    requested range began or ended inside the bucket."""
-    res = wh.con.execute(
-        f"""SELECT counter_id, (epoch_us(ts) - $g0) // $b AS k, avg(value) AS v FROM points
-            WHERE {_id_filter(ids)} AND ts >= make_timestamptz($a) AND ts < make_timestamptz($z)
-            GROUP BY ALL""",
-        {"ids": ids, "lo": min(ids), "hi": max(ids), "g0": grid.start_us, "b": grid.bucket_us,
-         "a": grid.start_us, "z": grid.end_us}).fetchnumpy()
-    out = np.full((grid.n, len(ids)), np.nan)
-    if len(res["k"]):
-        # counter id -> column through a lookup array: one vectorised step, not one per row
-        first = min(ids)
-        column = np.empty(max(ids) - first + 1, dtype=np.int64)
-        column[np.asarray(ids, dtype=np.int64) - first] = np.arange(len(ids))
-        cols = column[np.asarray(res["counter_id"], dtype=np.int64) - first]
-        out[np.asarray(res["k"], dtype=np.int64), cols] = np.asarray(res["v"], dtype=np.float64)
+    requested range began or ended inside the bucket. The three raw columns of the row groups that
+    can hold these counters are read file by file (a few files at once on a thread pool) and
+    reduced to per-bucket sums and counts in NumPy; no grouping query runs."""
+    if not ids:
+        return np.empty((grid.n, 0))
+    files = files or _Files(wh)
+    order = np.argsort(np.asarray(ids, dtype=np.int64), kind="stable")
+    sorted_ids = np.asarray(ids, dtype=np.int64)[order]
+    first = int(sorted_ids[0])
+    # counter id -> position among the sorted ids (-1 for ids not asked for)
+    column = np.full(int(sorted_ids[-1]) - first + 1, -1, dtype=np.int64)
+    column[sorted_ids - first] = np.arange(len(ids))
+    sums = np.zeros(len(ids) * grid.n)
+    counts = np.zeros(len(ids) * grid.n, dtype=np.int64)
+    work = files.wanted(first, int(sorted_ids[-1]), grid)
+
+    def add(part: tuple[np.ndarray, np.ndarray, np.ndarray] | None) -> None:
+        if part is None:
+            return
+        cell, s, c = part
+        if len(cell) > 1 and not bool((cell[1:] > cell[:-1]).all()):
+            np.add.at(sums, cell, s)  # rows not sorted (a file not written by us): still exact
+            np.add.at(counts, cell, c)
+        else:
+            sums[cell] += s
+            counts[cell] += c
+
+    jobs = [(files.home / rel, groups) for rel, groups in work]
+    if len(jobs) > 1 and READ_THREADS > 1:
+        with ThreadPoolExecutor(READ_THREADS) as pool:
+            for part in pool.map(lambda job: _reduce_file(job[0], job[1], column, first, grid), jobs):
+                add(part)
+    else:
+        for path, groups in jobs:
+            add(_reduce_file(path, groups, column, first, grid))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        means = np.where(counts > 0, sums / counts, np.nan).reshape(len(ids), grid.n)
+    out = np.empty((grid.n, len(ids)))
+    out[:, order] = means.T
     return out
 
 
 def blocks(wh: Warehouse, ids: list[int], grid: Grid,
            size: int = BLOCK_COUNTERS) -> Iterator[tuple[list[int], np.ndarray]]:
     """Aligned bucket means for `ids`, a block of counters at a time."""
+    files = _Files(wh)
     for lo in range(0, len(ids), size):
         part = ids[lo:lo + size]
-        yield part, bucket_block(wh, part, grid)
+        yield part, bucket_block(wh, part, grid, files)
 
 
 @dataclass(frozen=True)

@@ -1,0 +1,115 @@
+"""The aligned reader (warehouse/series.py) against the same bucket means computed by DuckDB.
+
+The reference is a plain GROUP BY over the `points` view: avg(value) per (counter, bucket). The
+reader does not run that query (it reduces the raw Parquet columns in NumPy), so agreement here is
+a check of two independent computations of the same thing.
+"""
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pyarrow.parquet as pq
+import pytest
+
+from warehouse import series
+from warehouse.home import open_warehouse
+from warehouse.ingest import write
+from warehouse.ingest.run import IngestOptions, ingest_files
+
+US = 1_000_000
+
+
+def reference(wh, ids: list[int], grid: series.Grid) -> np.ndarray:
+    rows = wh.con.execute(
+        """SELECT counter_id, (epoch_us(ts) - $g0) // $b AS k, avg(value) FROM points
+           WHERE counter_id IN (SELECT unnest($ids::INTEGER[]))
+             AND ts >= make_timestamptz($a) AND ts < make_timestamptz($z) GROUP BY ALL""",
+        {"ids": ids, "g0": grid.start_us, "b": grid.bucket_us, "a": grid.start_us, "z": grid.end_us}).fetchall()
+    out = np.full((grid.n, len(ids)), np.nan)
+    where = {cid: i for i, cid in enumerate(ids)}
+    for cid, k, v in rows:
+        out[k, where[cid]] = v
+    return out
+
+
+def assert_same(got: np.ndarray, want: np.ndarray) -> None:
+    assert got.shape == want.shape
+    assert np.array_equal(np.isnan(got), np.isnan(want))
+    present = ~np.isnan(want)
+    np.testing.assert_allclose(got[present], want[present], rtol=1e-12, atol=0)
+
+
+def all_ids(wh) -> list[int]:
+    return [r[0] for r in wh.con.execute("SELECT counter_id FROM counters ORDER BY key").fetchall()]
+
+
+@pytest.mark.parametrize("bucket,trim_start_s,trim_end_s", [(60, 0, 0), (300, 7 * 3600 + 17, 86_400), (3600, 0, 20 * 86_400)])
+def test_bucket_means_equal_sql_on_demo(demo_home: Path, bucket: int, trim_start_s: int, trim_end_s: int) -> None:
+    with open_warehouse(demo_home) as wh:
+        ids = all_ids(wh)  # key order, not id order: columns must follow the order asked for
+        lo, hi = series.time_range(wh, ids, None, None)
+        grid = series.grid_for(lo + trim_start_s * US, hi - trim_end_s * US, bucket)
+        assert_same(series.bucket_block(wh, ids, grid), reference(wh, ids, grid))
+        scattered = ids[::3][::-1]
+        assert_same(series.bucket_block(wh, scattered, grid), reference(wh, scattered, grid))
+
+
+def test_blocks_and_combine_follow_the_reference(demo_home: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    with open_warehouse(demo_home) as wh:
+        ids = all_ids(wh)
+        lo, hi = series.time_range(wh, ids, None, None)
+        grid = series.grid_for(lo, hi, 600)
+        want = reference(wh, ids, grid)
+        for threads in (1, 2):
+            monkeypatch.setattr(series, "READ_THREADS", threads)
+            got = np.concatenate([b for _, b in series.blocks(wh, ids, grid, size=7)], axis=1)
+            assert_same(got, want)
+        same_unit = [r[0] for r in wh.con.execute(
+            "SELECT counter_id FROM counters WHERE counter = 'write_iops' ORDER BY key").fetchall()]
+        assert len(same_unit) >= 2
+        part = reference(wh, same_unit, grid)
+        combined = series.combine(wh, same_unit, grid, "sum")
+        np.testing.assert_allclose(combined.values, np.nansum(part, axis=1) * np.where(
+            np.isnan(part).all(axis=1), np.nan, 1), rtol=1e-12)
+        assert np.array_equal(combined.present, (~np.isnan(part)).sum(axis=1))
+
+
+def _csv(path: Path, start: int, rows: int, scale: float) -> Path:
+    lines = ["time,a,b,c"]
+    for i in range(start, start + rows):
+        t = f"2026-05-04T{i // 60 % 24:02d}:{i % 60:02d}:00Z"
+        lines.append(f"{t},{i * scale},{(i % 7) * scale},{-i * scale}")
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    return path
+
+
+def test_duplicates_across_files_small_row_groups_and_unsorted_files(
+        home: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    # Small row groups so the row-group statistics have something to prune.
+    monkeypatch.setattr(write, "ROW_GROUP", 16)
+    first = _csv(tmp_path / "one.csv", 0, 300, 1.0)
+    second = _csv(tmp_path / "two.csv", 250, 200, 2.0)  # 50 minutes overlap with other values
+    for f in (first, second):
+        (res,) = ingest_files(home, [f], IngestOptions(host="h1"))
+        assert res.status == "loaded"
+    with open_warehouse(home) as wh:
+        ids = all_ids(wh)
+        lo, hi = series.time_range(wh, ids, None, None)
+        grid = series.grid_for(lo, hi, 300)
+        assert_same(series.bucket_block(wh, ids, grid), reference(wh, ids, grid))
+        # the overlap holds both files' samples, as the points view does
+        assert wh.con.execute("SELECT count(*) FROM points").fetchone()[0] == 3 * 500
+        files = series._Files(wh)
+        narrow = files.wanted(ids[1], ids[1], series.grid_for(lo, lo + 600 * US, 60))
+        total = sum(len(files.stats(rel)) for rel, _ in files.files)
+        assert 0 < sum(len(groups) for _, groups in narrow) < total / 4
+        relpaths = [rel for rel, _ in files.files]
+    # A file whose rows are not sorted (not written by us) still gives exact means.
+    target = home / relpaths[0]
+    table = pq.read_table(target)
+    shuffled = table.take(np.random.default_rng(5).permutation(table.num_rows))
+    pq.write_table(shuffled, target, row_group_size=10_000)
+    with open_warehouse(home) as wh:
+        grid = series.grid_for(lo, hi, 120)
+        assert_same(series.bucket_block(wh, ids, grid), reference(wh, ids, grid))
