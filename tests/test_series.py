@@ -13,6 +13,7 @@ import pyarrow.parquet as pq
 import pytest
 
 from warehouse import series
+from warehouse.errors import WarehouseError
 from warehouse.home import open_warehouse
 from warehouse.ingest import write
 from warehouse.ingest.run import IngestOptions, ingest_files
@@ -40,6 +41,24 @@ def assert_same(got: np.ndarray, want: np.ndarray) -> None:
     np.testing.assert_allclose(got[present], want[present], rtol=1e-12, atol=0)
 
 
+def sql_range(wh, ids: list[int], a: int | None, b: int | None) -> tuple[int, int] | None:
+    lo, hi = wh.con.execute(
+        "SELECT epoch_us(min(ts)), epoch_us(max(ts)) FROM points WHERE counter_id IN (SELECT unnest($ids::INTEGER[]))"
+        " AND ts >= make_timestamptz($a) AND ts < make_timestamptz($b)",
+        {"ids": ids, "a": -(2**62) if a is None else a, "b": 2**62 if b is None else b}).fetchone()
+    return None if lo is None else (lo if a is None else a, hi + 1 if b is None else b)
+
+
+def check_ranges(wh, ids: list[int]) -> None:
+    """time_range (row-group statistics, reading only shared row groups) equals min/max in SQL."""
+    lo, hi = sql_range(wh, ids, None, None)
+    assert series.time_range(wh, ids, None, None) == (lo, hi)
+    for a, b in [(lo + 3_600 * US + 1, None), (None, hi - 7_200 * US), (lo + 60 * US, lo + 86_400 * US)]:
+        assert series.time_range(wh, ids, a, b) == sql_range(wh, ids, a, b)
+        assert series._data_range(series._Files(wh), ids, -(2**62) if a is None else a,
+                                  2**62 if b is None else b)[0] is not None
+
+
 def all_ids(wh) -> list[int]:
     return [r[0] for r in wh.con.execute("SELECT counter_id FROM counters ORDER BY key").fetchall()]
 
@@ -53,6 +72,9 @@ def test_bucket_means_equal_sql_on_demo(demo_home: Path, bucket: int, trim_start
         assert_same(series.bucket_block(wh, ids, grid), reference(wh, ids, grid))
         scattered = ids[::3][::-1]
         assert_same(series.bucket_block(wh, scattered, grid), reference(wh, scattered, grid))
+        if bucket == 60:
+            for sel in (ids, scattered, ids[5:6], ids[-40:]):
+                check_ranges(wh, sel)
 
 
 def test_blocks_and_combine_follow_the_reference(demo_home: Path, monkeypatch: pytest.MonkeyPatch) -> None:
@@ -98,6 +120,12 @@ def test_duplicates_across_files_small_row_groups_and_unsorted_files(
         lo, hi = series.time_range(wh, ids, None, None)
         grid = series.grid_for(lo, hi, 300)
         assert_same(series.bucket_block(wh, ids, grid), reference(wh, ids, grid))
+        for sel in (ids, ids[1:2], ids[::2]):
+            check_ranges(wh, sel)
+        with pytest.raises(WarehouseError, match="no samples"):
+            series.time_range(wh, ids, hi + 3_600 * US, None)
+        with pytest.raises(WarehouseError, match="no samples"):  # between two samples, inside row groups
+            series.time_range(wh, ids, lo + 30 * US, lo + 31 * US)
         # the overlap holds both files' samples, as the points view does
         assert wh.con.execute("SELECT count(*) FROM points").fetchone()[0] == 3 * 500
         files = series._Files(wh)

@@ -80,16 +80,58 @@ def _id_filter(ids: list[int]) -> str:
     return "counter_id BETWEEN $lo AND $hi AND counter_id IN (SELECT unnest($ids::INTEGER[]))"
 
 
-def time_range(wh: Warehouse, ids: list[int], start_us: int | None, end_us: int | None) -> tuple[int, int]:
-    """The requested range, with open ends filled from the data; raises if nothing is inside."""
-    lo, hi = wh.con.execute(
-        f"SELECT epoch_us(min(ts)), epoch_us(max(ts)) FROM points WHERE {_id_filter(ids)}"
-        " AND ts >= make_timestamptz($a) AND ts < make_timestamptz($b)",
-        {"ids": ids, "lo": min(ids), "hi": max(ids), "a": start_us if start_us is not None else -(2**62),
-         "b": end_us if end_us is not None else 2**62}).fetchone()
-    if lo is None:
+def time_range(wh: Warehouse, ids: list[int], start_us: int | None, end_us: int | None,
+               files: _Files | None = None) -> tuple[int, int]:
+    """The requested range, with open ends filled from the data; raises if nothing is inside.
+
+    A row group that holds only selected counters and lies inside the range gives its first and
+    last time from its statistics without being read; only row groups shared with other counters
+    (or cut by the range) have their id and time columns read."""
+    a = start_us if start_us is not None else -(2**62)
+    b = end_us if end_us is not None else 2**62
+    lo, hi = _data_range(files or _Files(wh), ids, a, b)
+    if lo is None or hi is None:
         raise WarehouseError("no samples of the selected counters in the time range")
     return (start_us if start_us is not None else lo, end_us if end_us is not None else hi + 1)
+
+
+def _data_range(files: _Files, ids: list[int], a: int, b: int) -> tuple[int | None, int | None]:
+    """First and last sample time of `ids` in [a, b), in UTC microseconds (None when none)."""
+    wanted = np.unique(np.asarray(ids, dtype=np.int64))
+    first, last = int(wanted[0]), int(wanted[-1])
+    # covered[i] = how many selected ids are <= first + i - 1: a row group's id span [c0, c1] holds
+    # only selected ids when covered says every id in it is selected.
+    selected = np.zeros(last - first + 2, dtype=np.int64)
+    selected[wanted - first + 1] = 1
+    covered = np.cumsum(selected)
+    lo: int | None = None
+    hi: int | None = None
+    partial: list[tuple[str, list[int]]] = []
+    for rel, groups in files.wanted(first, last, Grid(a, b - a, 1)):
+        stats = files.stats(rel)
+        shared = []
+        for g in groups:
+            c0, c1, t0, t1 = stats[g]
+            inside = first <= c0 and c1 <= last and covered[c1 - first + 1] - covered[c0 - first] == c1 - c0 + 1
+            if inside and t0 >= a and t1 < b:
+                lo = t0 if lo is None else min(lo, t0)
+                hi = t1 if hi is None else max(hi, t1)
+            elif lo is None or hi is None or t0 < lo or t1 > hi:
+                shared.append(g)   # may move an end: read it
+        if shared:
+            partial.append((rel, shared))
+    for rel, groups in partial:
+        table = pq.ParquetFile(files.home / rel).read_row_groups(groups, columns=["counter_id", "ts"],
+                                                                 use_threads=False)
+        cid = table.column("counter_id").to_numpy().astype(np.int64, copy=False)
+        ts = table.column("ts").cast(pa.int64()).to_numpy()
+        keep = (ts >= a) & (ts < b) & (cid >= first) & (cid <= last)
+        keep[keep] = selected[cid[keep] - first + 1] == 1
+        if keep.any():
+            t = ts[keep]
+            lo = int(t.min()) if lo is None else min(lo, int(t.min()))
+            hi = int(t.max()) if hi is None else max(hi, int(t.max()))
+    return lo, hi
 
 
 def user_range(wh: Warehouse, ids: list[int], start: str | None, end: str | None) -> tuple[int, int]:
@@ -180,7 +222,7 @@ def _reduce_file(path: Path, groups: list[int], column: np.ndarray, first: int, 
     cell = col * grid.n + (ts - grid.start_us) // grid.bucket_us
     starts = np.flatnonzero(np.concatenate(([True], cell[1:] != cell[:-1])))
     sums = np.add.reduceat(value, starts)
-    counts = np.diff(np.append(starts, len(cell)))
+    counts = np.diff(np.append(starts, len(cell))).astype(np.int32)
     return cell[starts], sums, counts
 
 
@@ -201,15 +243,25 @@ def bucket_block(wh: Warehouse, ids: list[int], grid: Grid, files: _Files | None
     column = np.full(int(sorted_ids[-1]) - first + 1, -1, dtype=np.int64)
     column[sorted_ids - first] = np.arange(len(ids))
     sums = np.zeros(len(ids) * grid.n)
-    counts = np.zeros(len(ids) * grid.n, dtype=np.int64)
+    counts = np.zeros(len(ids) * grid.n, dtype=np.int32)
     work = files.wanted(first, int(sorted_ids[-1]), grid)
 
     def add(part: tuple[np.ndarray, np.ndarray, np.ndarray] | None) -> None:
         if part is None:
             return
         cell, s, c = part
-        if len(cell) > 1 and not bool((cell[1:] > cell[:-1]).all()):
-            np.add.at(sums, cell, s)  # rows not sorted (a file not written by us): still exact
+        # Regular samples give long runs of consecutive cells (one per counter in the file): add
+        # each run as a slice, which is a plain vector add. Otherwise scatter with np.add.at, which
+        # is exact even when cells repeat (rows not sorted: a file not written by us).
+        breaks = np.flatnonzero(np.diff(cell) != 1) + 1
+        if len(breaks) * 64 < len(cell):
+            bounds = np.concatenate(([0], breaks, [len(cell)])).tolist()
+            first_cells = cell[bounds[:-1]].tolist()
+            for k0, i, j in zip(first_cells, bounds[:-1], bounds[1:]):
+                sums[k0:k0 + j - i] += s[i:j]
+                counts[k0:k0 + j - i] += c[i:j]
+        elif len(cell) > 1 and not bool((cell[1:] > cell[:-1]).all()):
+            np.add.at(sums, cell, s)
             np.add.at(counts, cell, c)
         else:
             sums[cell] += s
