@@ -2,7 +2,8 @@
 from __future__ import annotations
 
 import re
-from datetime import datetime
+from dataclasses import dataclass
+from datetime import date, datetime, timedelta
 from zoneinfo import ZoneInfo
 
 import pandas as pd
@@ -82,3 +83,82 @@ def format_duration(seconds: float) -> str:
 
 def local_datetime(us: int, zone: str) -> datetime:
     return pd.Timestamp(us * 1000, tz="UTC").tz_convert(ZoneInfo(zone)).to_pydatetime()
+
+
+_ISO_WEEK = re.compile(r"^\s*(\d{4})-?W(\d{1,2})\s*$", re.IGNORECASE)
+_MONTH = re.compile(r"^\s*(\d{4})-(\d{2})\s*$")
+_DAY = re.compile(r"^\s*(\d{4})-(\d{2})-(\d{2})\s*$")
+
+
+@dataclass(frozen=True)
+class Period:
+    """[start_us, end_us) in UTC microseconds; kind is week, day, month or range (as typed)."""
+
+    start_us: int
+    end_us: int
+    kind: str
+    label: str
+
+
+def _local_midnight(day: date, zone: str) -> int:
+    return parse_when(day.isoformat(), zone)
+
+
+def _add_months(day: date, months: int) -> date:
+    index = day.year * 12 + day.month - 1 + months
+    return date(index // 12, index % 12 + 1, 1)
+
+
+def parse_period(text: str, zone: str) -> Period:
+    """'2026-W14' (ISO week, Monday to Monday), '2026-03-16' (a day), '2026-03' (a month) or
+    'T1..T2' (end exclusive); all local in `zone` unless a time carries an offset."""
+    text = (text or "").strip()
+    try:
+        if match := _ISO_WEEK.match(text):
+            monday = date.fromisocalendar(int(match[1]), int(match[2]), 1)
+            return Period(_local_midnight(monday, zone), _local_midnight(monday + timedelta(days=7), zone),
+                          "week", f"{int(match[1])}-W{int(match[2]):02d}")
+        if match := _MONTH.match(text):
+            first = date(int(match[1]), int(match[2]), 1)
+            return Period(_local_midnight(first, zone), _local_midnight(_add_months(first, 1), zone), "month", text)
+        if match := _DAY.match(text):
+            day = date(int(match[1]), int(match[2]), int(match[3]))
+            return Period(_local_midnight(day, zone), _local_midnight(day + timedelta(days=1), zone), "day", text)
+    except ValueError as exc:
+        raise WarehouseError(f"cannot read period {text!r}: {exc}") from exc
+    if ".." not in text:
+        raise WarehouseError(f"cannot read period {text!r}: use e.g. 2026-W14, 2026-03-16, 2026-03 or"
+                             " 2026-03-02..2026-03-09T12:00")
+    first, _, last = text.partition("..")
+    if not first.strip() or not last.strip():
+        raise WarehouseError(f"period {text!r} needs a start and an end: T1..T2")
+    start, end = parse_when(first.strip(), zone), parse_when(last.strip(), zone)
+    if end <= start:
+        raise WarehouseError(f"empty period {text!r}: its end is not after its start")
+    return Period(start, end, "range", text)
+
+
+def period_before(period: Period, k: int, zone: str) -> Period:
+    """The k-th comparable period before `period`: the k-th previous week or month; for a day or a
+    range of up to a week, the same local clock span k weeks earlier (same weekdays); for a longer
+    range, the span of the same length ending k lengths earlier."""
+    if period.kind == "month":
+        first = local_datetime(period.start_us, zone).date()
+        a = _add_months(first, -k)
+        return Period(_local_midnight(a, zone), _local_midnight(_add_months(a, 1), zone), "month", a.strftime("%Y-%m"))
+    length = period.end_us - period.start_us
+    if period.kind in ("week", "day") or length <= 7 * 86_400 * 1_000_000:
+        back = (lambda us: _shift_local(us, zone, days=-7 * k))
+        start, end = back(period.start_us), back(period.end_us)
+        year, week, _ = local_datetime(start, zone).isocalendar()
+        label = {"week": f"{year}-W{week:02d}", "day": local_datetime(start, zone).strftime("%Y-%m-%d")}.get(
+            period.kind, local_datetime(start, zone).strftime("%Y-%m-%d %H:%M"))
+        return Period(start, end, period.kind, label)
+    start = period.start_us - k * length
+    return Period(start, start + length, "range", local_datetime(start, zone).strftime("%Y-%m-%d %H:%M"))
+
+
+def _shift_local(us: int, zone: str, *, days: int) -> int:
+    """Move a time by whole local days (the wall clock kept across a DST change)."""
+    local = local_datetime(us, zone).replace(tzinfo=None) + timedelta(days=days)
+    return parse_when(local.isoformat(), zone)
