@@ -335,6 +335,63 @@ def patterns(ctx: Ctx, selector: str, start: str | None, end: str | None, bucket
 
 
 @cli.command()
+@click.option("--period", "periods", type=click.Choice(["week", "day", "month"]), multiple=True,
+              help="Which summaries to compute (repeatable; default week).")
+@click.option("--due", "mode", flag_value="due", help="Only periods touched by ingests since the last rollup (default).")
+@click.option("--all", "mode", flag_value="all", help="Rebuild every period.")
+@click.option("--since", metavar="DATE", help="Rebuild every period from the one holding DATE (local) on.")
+@click.option("--format", "fmt", type=click.Choice(["table", "json"]), default="table", show_default=True)
+@pass_ctx
+@handle_errors
+def rollup(ctx: Ctx, periods: tuple[str, ...], mode: str | None, since: str | None, fmt: str) -> None:
+    """Summarise every counter per local day, ISO week or month into rollup_day/_week/_month.
+
+    Safe to run at any time (one rollup at a time; a killed run leaves the previous rows);
+    prints one summary line.
+
+    \b
+    Example:
+      warehouse --home ./wh rollup --due --period week --period month
+    """
+    from warehouse.render import render_rollup
+    from warehouse.rollup import RollupRequest, rollup as run_rollup
+    if since is not None and mode is not None:
+        raise click.UsageError("--since cannot go with --due or --all")
+    req = RollupRequest(periods or ("week",), "since" if since is not None else (mode or "due"), since)
+    summaries = run_rollup(ctx.home, req)
+    click.echo(render_mapping({"rollups": summaries}, "json") if fmt == "json" else render_rollup(summaries))
+
+
+@cli.command()
+@click.argument("selector")
+@click.option("--stat", type=click.Choice(["p95", "bound", "mean", "max", "p50", "p99"]), default="p95",
+              show_default=True, help="Weekly statistic to follow (bound: the sizing bound stored by the rollup).")
+@click.option("--capacity", type=float, help="Level to reach, in the counter's unit: report the week the line crosses it.")
+@click.option("--combine", type=click.Choice(["sum", "mean", "max"]),
+              help="Follow the selected counters as one series (1-minute means combined; computed from the points).")
+@click.option("--confidence", type=float, default=0.9, show_default=True, help="Confidence of the growth interval.")
+@click.option("--horizon", "horizon_weeks", type=int, default=52, show_default=True,
+              help="Weeks after the last one to look for the crossing.")
+@click.option("--format", "fmt", type=click.Choice(["table", "json"]), default="table", show_default=True)
+@pass_ctx
+@handle_errors
+def trend(ctx: Ctx, selector: str, stat: str, capacity: float | None, combine: str | None, confidence: float,
+          horizon_weeks: int, fmt: str) -> None:
+    """Weekly series of a statistic, its growth per week (Theil-Sen) and when it reaches --capacity.
+
+    \b
+    Example:
+      warehouse --home ./wh trend 'san01/pool=vdi/read_iops' --stat p95 --capacity 12000
+    """
+    from warehouse.render import render_trend
+    from warehouse.trend import TrendRequest, trend as weekly_trend
+    req = TrendRequest(selector, stat, capacity, combine, confidence, horizon_weeks)
+    with open_warehouse(ctx.home) as wh:
+        result = weekly_trend(wh, req)
+    click.echo(render_mapping(result, "json") if fmt == "json" else render_trend(result))
+
+
+@cli.command()
 @click.option("--format", "fmt", type=FORMATS, default="table", show_default=True)
 @pass_ctx
 @handle_errors

@@ -5,6 +5,7 @@ import csv
 import datetime as dt
 import io
 import json
+import textwrap
 from collections.abc import Sequence
 from typing import Any
 
@@ -183,3 +184,74 @@ def _calendar_grid(cells: list[dict[str, Any]]) -> list[str]:
     for hour in range(24):
         out.append(f"  {hour:02d}   " + " ".join(_num(table.get((d, hour))).rjust(width) for d in days))
     return out
+
+
+def render_rollup(summaries: list[dict[str, Any]]) -> str:
+    """The one line a scheduled rollup logs."""
+    parts = []
+    for s in summaries:
+        if not s["periods"]:
+            parts.append(f"{s['period']}: nothing due")
+            continue
+        span = s["first_period"].isoformat()
+        if s["last_period"] != s["first_period"]:
+            span += f" .. {s['last_period'].isoformat()}"
+        parts.append(f"{s['period']}: {s['periods']} period(s) {span}, {s['rows']} rows"
+                     + (f", {s['incomplete_rows']} still open" if s["incomplete_rows"] else ""))
+    took = summaries[0]["seconds"] if summaries else 0.0
+    return f"rollup --{summaries[0]['mode']}: " + "; ".join(parts) + f" ({took:.1f} s)"
+
+
+def _week_words(c: dict[str, Any] | None, horizon: int) -> str:
+    if c is None:
+        return "-"
+    if c["status"] == "already":
+        return "already at or above it"
+    far = f"not within {horizon} weeks"
+    if c["status"] == "not_within":
+        return far + (f" (upper growth: {c['week_early'].isoformat()})" if c["week_early"] else "")
+    late = c["week_late"].isoformat() if c["week_late"] else far
+    return f"week of {c['week'].isoformat()} [{c['week_early'].isoformat()} .. {late}]"
+
+
+def _growth(fit: dict[str, Any] | None, unit: str) -> str:
+    if fit is None:
+        return "-"
+    return (f"{fit['slope_per_week']:+,.4g} {unit}/week".replace(" /", "/")
+            + f" [{fit['slope_low']:+,.3g}, {fit['slope_high']:+,.3g}]")
+
+
+def render_trend(r: dict[str, Any]) -> str:
+    """One counter: its weekly values, growth and crossing; several: one line each."""
+    ci = f"{r['confidence']:.0%}"
+    lines = [f"trend {r['selector']}: weekly {r['stat']}" + (f", combine {r['combine']}" if r["combine"] else "")
+             + f"; growth per week by Theil-Sen with its {ci} interval"
+             + (f"; capacity {_num(r['capacity'])}" if r["capacity"] is not None else ""), ""]
+    if len(r["series"]) == 1:
+        s = r["series"][0]
+        rows = [("week", r["stat"], "n / expected", "")]
+        rows += [(w["week"].isoformat(), _num(w["value"], s["unit"]), f"{w['n']} / {w['expected_n'] or '-'}",
+                  "" if w["complete"] else "open, not fitted") for w in s["weeks"]]
+        widths = [max(len(row[i]) for row in rows) for i in range(4)]
+        lines += ["  ".join(c.rjust(w) if i in (1, 2) else c.ljust(w) for i, (c, w) in enumerate(zip(row, widths))).rstrip()
+                  for row in rows]
+        lines += ["", f"growth: {_growth(s['fit'], s['unit'])}"]
+        if r["capacity"] is not None and s["fit"] is not None:
+            lines.append(f"reaches {_num(r['capacity'], s['unit'])}: {_week_words(s['fit']['crossing'], r['horizon_weeks'])}")
+    else:
+        rows = [("key", "weeks", f"last {r['stat']}", "growth per week [interval]")
+                + (("reaches capacity",) if r["capacity"] is not None else ())]
+        for s in r["series"]:
+            fit = s["fit"]
+            last = s["weeks"][-1]["value"] if s["weeks"] else None
+            row = (s["key"], str(fit["weeks_used"] if fit else len(s["weeks"])), _num(last, s["unit"]),
+                   _growth(fit, s["unit"]))
+            if r["capacity"] is not None:
+                row += (_week_words(fit["crossing"] if fit else None, r["horizon_weeks"]),)
+            rows.append(row)
+        widths = [max(len(row[i]) for row in rows) for i in range(len(rows[0]))]
+        lines += ["  ".join(c.ljust(w) for c, w in zip(row, widths)).rstrip() for row in rows]
+    if r["cautions"]:
+        lines += ["", "cautions:"] + [textwrap.fill(c, 98, initial_indent="  - ", subsequent_indent="    ")
+                                      for c in r["cautions"]]
+    return "\n".join(lines)
