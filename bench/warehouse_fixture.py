@@ -26,7 +26,7 @@ from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
 OUT = HERE / "out"
-FIXTURE_VERSION = 2
+FIXTURE_VERSION = 3  # 3: row groups of 32 Ki rows
 START = "2026-03-02T00:00:00"           # a Monday, UTC
 CHUNK_ROWS = 8192
 SOURCE = "bench"

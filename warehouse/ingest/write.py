@@ -20,7 +20,10 @@ import pyarrow.parquet as pq
 from warehouse.ingest.model import Reject
 
 US_PER_DAY = 86_400_000_000
-ROW_GROUP = 256 * 1024
+# Rows per row group. Files are sorted by (counter, time), so a row group holds a few counters'
+# runs and its statistics let a reader that wants one counter skip the others; 32 Ki rows (about
+# 0.6 MB before compression) keep that skipping fine-grained at a small cost in metadata.
+ROW_GROUP = 32 * 1024
 # Only counter_id is dictionary-encoded (long runs of one id). For ts and value, zstd alone
 # packs the pages as small or smaller, and their dictionaries cost a third of the write time.
 DICTIONARY_COLUMNS = ["counter_id"]
