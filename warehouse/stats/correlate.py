@@ -246,17 +246,29 @@ def _tie_averaged_positions(tied: np.ndarray) -> np.ndarray:
     """1-based ranks along axis 1 of sorted rows, runs of equal values given their mean rank.
 
     ``tied[:, i]`` says sorted element i + 1 equals element i. A run spanning positions first..last
-    gets (first + last) / 2 + 1.
+    gets (first + last) / 2 + 1. The cost follows the number of ties: with many ties (whole numbers,
+    a few distinct levels) every run is expanded at once with np.repeat; with few, only the tied
+    elements are touched.
     """
     k, n = tied.shape[0], tied.shape[1] + 1
-    pos = np.broadcast_to(np.arange(n), (k, n))
-    new_run = np.ones((k, n), dtype=bool)
-    new_run[:, 1:] = ~tied
-    last_of_run = np.ones((k, n), dtype=bool)
-    last_of_run[:, :-1] = ~tied
-    first = np.maximum.accumulate(np.where(new_run, pos, 0), axis=1)
-    last = np.minimum.accumulate(np.where(last_of_run, pos, n - 1)[:, ::-1], axis=1)[:, ::-1]
-    return (first + last) * 0.5 + 1.0
+    if 4 * int(np.count_nonzero(tied)) > tied.size:
+        new_run = np.ones((k, n), dtype=bool)
+        new_run[:, 1:] = ~tied
+        starts = np.flatnonzero(new_run)              # every row starts a run
+        lengths = np.diff(np.append(starts, k * n))
+        return np.repeat((starts % n) + (lengths - 1) * 0.5 + 1.0, lengths).reshape(k, n)
+    out = np.tile(np.arange(1.0, n + 1), (k, 1))
+    rows, cols = np.nonzero(tied)                      # pair (cols, cols + 1) of row `rows` is tied
+    if not rows.size:
+        return out
+    e = rows * n + cols                                # flat index of the pair's left element
+    group = np.concatenate(([True], np.diff(e) != 1))  # consecutive pairs chain into one run
+    first = e[group]
+    last = np.append(e[np.flatnonzero(group)[1:] - 1], e[-1]) + 1
+    size = last - first + 1
+    elements = np.repeat(first - np.cumsum(np.append(0, size[:-1])), size) + np.arange(int(size.sum()))
+    out.ravel()[elements] = np.repeat((first % n + last % n) * 0.5 + 1.0, size)
+    return out
 
 
 def _average_ranks_rows(A: np.ndarray) -> np.ndarray:
