@@ -216,3 +216,20 @@ def test_changes_table_fits_100_columns(demo_home: Path) -> None:
     out = run("--home", str(demo_home), "compare", f"{VDI}/write_iops", "--before", "2026-W11", "--after", "2026-W12")
     assert out.exit_code == 0 and max(len(line) for line in out.output.splitlines()) <= 100
     assert "verdict:" in out.output
+
+
+def test_changes_reads_what_warehouse_rollup_wrote(home: Path, tmp_path: Path) -> None:
+    """After `warehouse rollup --all --period week`, every period comes from rollup_week and the
+    scores equal those from the points (the rollup's statistics are computed independently)."""
+    _weekly_home(home, tmp_path)
+    req = ChangesRequest(period="2026-W06", history=4)
+    with open_warehouse(home) as wh:
+        raw = find_changes(wh, req)
+    assert run("--home", str(home), "rollup", "--all", "--period", "week").exit_code == 0
+    with open_warehouse(home) as wh:
+        rolled = find_changes(wh, req)
+    assert rolled["sources"] == {"rollup": 5, "points": 0}
+    assert [x["key"] for x in rolled["results"]] == [x["key"] for x in raw["results"]]
+    for a, b in zip(raw["results"], rolled["results"]):
+        assert a["score"] == pytest.approx(b["score"], rel=1e-9) and a["p95"] == pytest.approx(b["p95"], rel=1e-12)
+    assert (rolled["new"], rolled["silent"]) == (raw["new"], raw["silent"])
