@@ -129,7 +129,7 @@ def test_duplicates_across_files_small_row_groups_and_unsorted_files(
         # the overlap holds both files' samples, as the points view does
         assert wh.con.execute("SELECT count(*) FROM points").fetchone()[0] == 3 * 500
         files = series._Files(wh)
-        narrow = files.wanted(ids[1], ids[1], series.grid_for(lo, lo + 600 * US, 60))
+        narrow = files.wanted(series._Selection([ids[1]]), series.grid_for(lo, lo + 600 * US, 60))
         total = sum(len(files.stats(rel)) for rel, _ in files.files)
         assert 0 < sum(len(groups) for _, groups in narrow) < total / 4
         relpaths = [rel for rel, _ in files.files]

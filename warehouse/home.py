@@ -12,6 +12,7 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
 from types import TracebackType
+from typing import Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 import duckdb
@@ -117,6 +118,8 @@ class Warehouse:
         self.home = home
         self.con = con
         self.read_only = read_only
+        # Facts derived from this snapshot that readers may keep (e.g. Parquet row-group statistics).
+        self.cache: dict[str, Any] = {}
         row = con.execute("SELECT value FROM settings WHERE name = 'zone'").fetchone()
         self.zone: str = row[0] if row else "UTC"
 

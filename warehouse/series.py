@@ -89,7 +89,7 @@ def time_range(wh: Warehouse, ids: list[int], start_us: int | None, end_us: int 
     (or cut by the range) have their id and time columns read."""
     a = start_us if start_us is not None else -(2**62)
     b = end_us if end_us is not None else 2**62
-    lo, hi = _data_range(files or _Files(wh), ids, a, b)
+    lo, hi = _data_range(files or _Files.of(wh), ids, a, b)
     if lo is None or hi is None:
         raise WarehouseError("no samples of the selected counters in the time range")
     return (start_us if start_us is not None else lo, end_us if end_us is not None else hi + 1)
@@ -97,22 +97,17 @@ def time_range(wh: Warehouse, ids: list[int], start_us: int | None, end_us: int 
 
 def _data_range(files: _Files, ids: list[int], a: int, b: int) -> tuple[int | None, int | None]:
     """First and last sample time of `ids` in [a, b), in UTC microseconds (None when none)."""
-    wanted = np.unique(np.asarray(ids, dtype=np.int64))
-    first, last = int(wanted[0]), int(wanted[-1])
-    # covered[i] = how many selected ids are <= first + i - 1: a row group's id span [c0, c1] holds
-    # only selected ids when covered says every id in it is selected.
-    selected = np.zeros(last - first + 2, dtype=np.int64)
-    selected[wanted - first + 1] = 1
-    covered = np.cumsum(selected)
+    sel = _Selection(ids)
+    first, last = sel.first, sel.last
     lo: int | None = None
     hi: int | None = None
     partial: list[tuple[str, list[int]]] = []
-    for rel, groups in files.wanted(first, last, Grid(a, b - a, 1)):
+    for rel, groups in files.wanted(sel, Grid(a, b - a, 1)):
         stats = files.stats(rel)
         shared = []
         for g in groups:
             c0, c1, t0, t1 = stats[g]
-            inside = first <= c0 and c1 <= last and covered[c1 - first + 1] - covered[c0 - first] == c1 - c0 + 1
+            inside = sel.count(c0, c1) == c1 - c0 + 1   # only selected ids in the row group
             if inside and t0 >= a and t1 < b:
                 lo = t0 if lo is None else min(lo, t0)
                 hi = t1 if hi is None else max(hi, t1)
@@ -121,12 +116,12 @@ def _data_range(files: _Files, ids: list[int], a: int, b: int) -> tuple[int | No
         if shared:
             partial.append((rel, shared))
     for rel, groups in partial:
-        table = pq.ParquetFile(files.home / rel).read_row_groups(groups, columns=["counter_id", "ts"],
-                                                                 use_threads=False)
+        table = pq.ParquetFile(files.home / rel, metadata=files.meta.get(rel)).read_row_groups(
+            groups, columns=["counter_id", "ts"], use_threads=False)
         cid = table.column("counter_id").to_numpy().astype(np.int64, copy=False)
         ts = table.column("ts").cast(pa.int64()).to_numpy()
         keep = (ts >= a) & (ts < b) & (cid >= first) & (cid <= last)
-        keep[keep] = selected[cid[keep] - first + 1] == 1
+        keep[keep] = sel.flag[cid[keep] - first + 1] == 1
         if keep.any():
             t = ts[keep]
             lo = int(t.min()) if lo is None else min(lo, int(t.min()))
@@ -151,6 +146,25 @@ def grid_for(start_us: int, end_us: int, bucket_seconds: int) -> Grid:
     return Grid(first, bucket, max(n, 1))
 
 
+class _Selection:
+    """A set of counter ids, with a prefix count that says how many of them lie in any id span."""
+
+    def __init__(self, ids: list[int] | np.ndarray) -> None:
+        self.ids = np.unique(np.asarray(ids, dtype=np.int64))
+        self.first, self.last = int(self.ids[0]), int(self.ids[-1])
+        flag = np.zeros(self.last - self.first + 2, dtype=np.int64)
+        flag[self.ids - self.first + 1] = 1
+        self.flag = flag            # flag[id - first + 1] == 1 for a selected id
+        self.prefix = np.cumsum(flag)
+
+    def count(self, c0: int, c1: int) -> int:
+        """How many selected ids lie in [c0, c1]."""
+        lo, hi = max(c0, self.first), min(c1, self.last)
+        if hi < lo:
+            return 0
+        return int(self.prefix[hi - self.first + 1] - self.prefix[lo - self.first])
+
+
 class _Files:
     """The committed Parquet files with their row-group statistics, read once per command.
 
@@ -162,12 +176,21 @@ class _Files:
         self.files = wh.con.execute(
             "SELECT relpath, epoch_us(day::TIMESTAMP) FROM ingest_files ORDER BY relpath").fetchall()
         self._stats: dict[str, list[tuple[int, int, int, int]]] = {}
+        self.meta: dict[str, pq.FileMetaData] = {}
+
+    @staticmethod
+    def of(wh: Warehouse) -> "_Files":
+        """The snapshot's file list, shared by every read on this warehouse object."""
+        files = wh.cache.get("series.files")
+        if files is None:
+            files = wh.cache["series.files"] = _Files(wh)
+        return files
 
     def stats(self, relpath: str) -> list[tuple[int, int, int, int]]:
         """(counter_id min, max, ts min, max) in UTC microseconds per row group."""
         got = self._stats.get(relpath)
         if got is None:
-            meta = pq.ParquetFile(self.home / relpath).metadata
+            meta = self.meta[relpath] = pq.ParquetFile(self.home / relpath).metadata
             names = [meta.schema.column(i).name for i in range(meta.num_columns)]
             c, t = names.index("counter_id"), names.index("ts")
             got = []
@@ -181,15 +204,15 @@ class _Files:
             self._stats[relpath] = got
         return got
 
-    def wanted(self, lo_id: int, hi_id: int, grid: Grid) -> list[tuple[str, list[int]]]:
-        """Files and row groups that may hold counters lo_id..hi_id inside the grid."""
+    def wanted(self, sel: _Selection, grid: Grid) -> list[tuple[str, list[int]]]:
+        """Files and row groups that may hold selected counters inside the grid."""
         out = []
         for relpath, day_us in self.files:
             # a partition holds one UTC day; skip days outside the grid before opening the file
             if day_us is not None and (day_us >= grid.end_us or day_us + DAY_US <= grid.start_us):
                 continue
             groups = [i for i, (c0, c1, t0, t1) in enumerate(self.stats(relpath))
-                      if c1 >= lo_id and c0 <= hi_id and t1 >= grid.start_us and t0 < grid.end_us]
+                      if t1 >= grid.start_us and t0 < grid.end_us and sel.count(c0, c1) > 0]
             if groups:
                 out.append((relpath, groups))
         return out
@@ -202,14 +225,15 @@ def _epoch_us(value: object) -> int:
     return int(value)  # type: ignore[call-overload]
 
 
-def _reduce_file(path: Path, groups: list[int], column: np.ndarray, first: int, grid: Grid
-                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+def _reduce_file(path: Path, meta: pq.FileMetaData | None, groups: list[int], column: np.ndarray, first: int,
+                 grid: Grid) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
     """Sum and count per (column, bucket) cell of one file: flat cell index, sums, counts.
 
     The file is sorted by (counter_id, ts) and `column` maps ids to columns in increasing order,
     so the cell index is non-decreasing and each cell is one run: np.add.reduceat sums the runs
     without a hash table."""
-    table = pq.ParquetFile(path).read_row_groups(groups, columns=["counter_id", "ts", "value"], use_threads=False)
+    table = pq.ParquetFile(path, metadata=meta).read_row_groups(groups, columns=["counter_id", "ts", "value"],
+                                                                use_threads=False)
     cid = table.column("counter_id").to_numpy().astype(np.int64, copy=False)
     ts = table.column("ts").cast(pa.int64()).to_numpy()
     value = table.column("value").to_numpy()
@@ -235,7 +259,7 @@ def bucket_block(wh: Warehouse, ids: list[int], grid: Grid, files: _Files | None
     reduced to per-bucket sums and counts in NumPy; no grouping query runs."""
     if not ids:
         return np.empty((grid.n, 0))
-    files = files or _Files(wh)
+    files = files or _Files.of(wh)
     order = np.argsort(np.asarray(ids, dtype=np.int64), kind="stable")
     sorted_ids = np.asarray(ids, dtype=np.int64)[order]
     first = int(sorted_ids[0])
@@ -244,7 +268,7 @@ def bucket_block(wh: Warehouse, ids: list[int], grid: Grid, files: _Files | None
     column[sorted_ids - first] = np.arange(len(ids))
     sums = np.zeros(len(ids) * grid.n)
     counts = np.zeros(len(ids) * grid.n, dtype=np.int32)
-    work = files.wanted(first, int(sorted_ids[-1]), grid)
+    work = files.wanted(_Selection(sorted_ids), grid)
 
     def add(part: tuple[np.ndarray, np.ndarray, np.ndarray] | None) -> None:
         if part is None:
@@ -267,14 +291,14 @@ def bucket_block(wh: Warehouse, ids: list[int], grid: Grid, files: _Files | None
             sums[cell] += s
             counts[cell] += c
 
-    jobs = [(files.home / rel, groups) for rel, groups in work]
+    jobs = [(files.home / rel, files.meta.get(rel), groups) for rel, groups in work]
     if len(jobs) > 1 and READ_THREADS > 1:
         with ThreadPoolExecutor(READ_THREADS) as pool:
-            for part in pool.map(lambda job: _reduce_file(job[0], job[1], column, first, grid), jobs):
+            for part in pool.map(lambda job: _reduce_file(*job, column, first, grid), jobs):
                 add(part)
     else:
-        for path, groups in jobs:
-            add(_reduce_file(path, groups, column, first, grid))
+        for job in jobs:
+            add(_reduce_file(*job, column, first, grid))
     with np.errstate(invalid="ignore", divide="ignore"):
         means = np.where(counts > 0, sums / counts, np.nan).reshape(len(ids), grid.n)
     out = np.empty((grid.n, len(ids)))
@@ -285,7 +309,7 @@ def bucket_block(wh: Warehouse, ids: list[int], grid: Grid, files: _Files | None
 def blocks(wh: Warehouse, ids: list[int], grid: Grid,
            size: int = BLOCK_COUNTERS) -> Iterator[tuple[list[int], np.ndarray]]:
     """Aligned bucket means for `ids`, a block of counters at a time."""
-    files = _Files(wh)
+    files = _Files.of(wh)
     for lo in range(0, len(ids), size):
         part = ids[lo:lo + size]
         yield part, bucket_block(wh, part, grid, files)
