@@ -450,5 +450,101 @@ def demo(ctx: Ctx, scale: str, keep_csv: Path | None) -> None:
         click.echo(line)
 
 
+@cli.command()
+@click.argument("selector")
+@click.option("--before", required=True, metavar="PERIOD", help="T1..T2, an ISO week (2026-W11), a day or a month.")
+@click.option("--after", required=True, metavar="PERIOD", help="The period to compare with it; must not overlap.")
+@click.option("--window", default="all", show_default=True, metavar="all|busiest-hours|HH:MM-HH:MM",
+              help="Compare all buckets, each day's busiest hour(s), or a clock window (warehouse zone).")
+@click.option("--busiest-hours", type=int, default=1, show_default=True, help="Hours per day picked by --window busiest-hours.")
+@click.option("--days", metavar="mon-fri", help="Weekdays to keep, e.g. mon-fri.")
+@click.option("--combine", type=click.Choice(["sum", "mean", "max"]), help="How several counters become one series.")
+@click.option("--bucket", default="1m", show_default=True, help="Time bucket (mean inside).")
+@click.option("--confidence", type=float, default=0.95, show_default=True, help="Confidence of the intervals.")
+@click.option("--format", "fmt", type=FORMATS, default="table", show_default=True)
+@pass_ctx
+@handle_errors
+def compare(ctx: Ctx, selector: str, before: str, after: str, window: str, busiest_hours: int, days: str | None,
+            combine: str | None, bucket: str, confidence: float, fmt: str) -> None:
+    """Did a change (upgrade, migration, patch) move SELECTOR? Distribution-free before/after test.
+
+    \b
+    Example:
+      warehouse --home ./wh compare 'san01/pool=vdi/read_iops' --before 2026-W11 --after 2026-W12
+    """
+    from warehouse.compare import CompareRequest, compare_periods
+    from warehouse.render import render_compare
+    req = CompareRequest(selector, before, after, window, days, busiest_hours, combine, bucket, confidence)
+    with open_warehouse(ctx.home) as wh:
+        result = compare_periods(wh, req)
+    if fmt == "json":
+        click.echo(render_mapping(result, "json"))
+    elif fmt == "csv":
+        flat = {k: v for k, v in result.items() if k not in ("before", "after", "cautions")}
+        flat.update({f"{side}_{k}": v for side in ("before", "after") for k, v in result[side].items()})
+        click.echo(render_rows([dict(flat, cautions=" | ".join(result["cautions"]))], [*flat, "cautions"], "csv"))
+    else:
+        click.echo(render_compare(result))
+
+
+@cli.command()
+@click.argument("selector", required=False)
+@click.option("--period", metavar="PERIOD", help="2026-W14 (ISO week), 2026-03-16 (a day), 2026-03 (a month) or T1..T2.")
+@click.option("--from", "start", metavar="T", help="Start of the period, instead of --period.")
+@click.option("--to", "end", metavar="T", help="End of the period, exclusive.")
+@click.option("--history", type=int, default=8, show_default=True, help="How many comparable periods before it to compare with.")
+@click.option("--top", type=int, default=30, show_default=True, help="How many counters to list.")
+@click.option("--fdr", type=float, default=0.05, show_default=True, help="False discovery rate for the q-value count.")
+@click.option("--format", "fmt", type=FORMATS, default="table", show_default=True)
+@pass_ctx
+@handle_errors
+def changes(ctx: Ctx, selector: str | None, period: str | None, start: str | None, end: str | None, history: int,
+            top: int, fdr: float, fmt: str) -> None:
+    """Rank every counter (or those matching SELECTOR) by how far a period departs from its own history.
+
+    \b
+    Example:
+      warehouse --home ./wh changes --period 2026-W12 --history 8 --top 20
+    """
+    from warehouse.changes import ROW_KEYS, ChangesRequest, find_changes
+    from warehouse.render import render_changes
+    with open_warehouse(ctx.home) as wh:
+        result = find_changes(wh, ChangesRequest(period, start, end, history, top, selector, fdr))
+    if fmt == "json":
+        click.echo(render_mapping(result, "json"))
+    elif fmt == "csv":
+        click.echo(render_rows(result["results"], list(ROW_KEYS), "csv"))
+    else:
+        click.echo(render_changes(result))
+
+
+@cli.command()
+@click.argument("selector", required=False)
+@click.option("--period", metavar="PERIOD", help="2026-W14, 2026-03-16, 2026-03 or T1..T2 (default: everything).")
+@click.option("--top", type=int, default=50, show_default=True, help="How many counters to list (most time beyond first).")
+@click.option("--file", "limits_file", type=click.Path(path_type=Path), metavar="FILE",
+              help="Read levels from FILE instead of <home>/limits.toml (the defaults still follow unless it drops them).")
+@click.option("--format", "fmt", type=FORMATS, default="table", show_default=True)
+@pass_ctx
+@handle_errors
+def limits(ctx: Ctx, selector: str | None, period: str | None, top: int, limits_file: Path | None, fmt: str) -> None:
+    """Time, share and longest stretch of each counter beyond its warn and critical levels (limits.toml).
+
+    \b
+    Example:
+      warehouse --home ./wh limits --period 2026-W12
+    """
+    from warehouse.limits import ROW_KEYS, check_limits
+    from warehouse.render import render_limits
+    with open_warehouse(ctx.home) as wh:
+        result = check_limits(wh, period, selector, top, limits_file)
+    if fmt == "json":
+        click.echo(render_mapping(result, "json"))
+    elif fmt == "csv":
+        click.echo(render_rows(result["results"], list(ROW_KEYS), "csv"))
+    else:
+        click.echo(render_limits(result))
+
+
 def main() -> None:
     cli(prog_name="warehouse")

@@ -103,6 +103,91 @@ def render_sizing(r: dict[str, Any]) -> str:
     return "\n".join(lines)
 
 
+def _cut(text: str, width: int) -> str:
+    """Shorten from the middle so both the host and the counter name stay readable."""
+    if len(text) <= width:
+        return text
+    keep = width - 1
+    return text[:keep - keep // 2] + "~" + text[len(text) - keep // 2:]
+
+
+def _notes(title: str, items: list[str]) -> list[str]:
+    from textwrap import fill
+    return ["", f"{title}:"] + [fill(c, 98, initial_indent="  - ", subsequent_indent="    ") for c in items]
+
+
+def _fit(lines: list[str], width: int = 100) -> str:
+    """Wrap the prose lines that would pass `width` columns (tables are built narrower)."""
+    from textwrap import fill
+    physical = [part for line in lines for part in line.split("\n")]
+    return "\n".join(fill(line, width - 2, subsequent_indent="  ") if len(line) > width else line for line in physical)
+
+
+def _aligned(rows: list[tuple[str, ...]], right: frozenset[int] | set[int] = frozenset()) -> list[str]:
+    widths = [max(len(row[i]) for row in rows) for i in range(len(rows[0]))]
+    return ["  ".join(c.rjust(w) if i in right else c.ljust(w) for i, (c, w) in enumerate(zip(row, widths))).rstrip()
+            for row in rows]
+
+
+def render_compare(r: dict[str, Any]) -> str:
+    """Before and after side by side, the shift with its interval, the tests, the verdict."""
+    u = r["unit"] or ""
+    conf = f"{r['confidence']:.0%}"
+    head = (f"compare {r['selector']}: {r['counters']} counter(s), combine {r['combine']}, bucket"
+            f" {r['bucket_seconds']} s, window {r['window']}, days {r['days']}")
+    b, a = r["before"], r["after"]
+    rows = [("", f"before ({b['period']})", f"after ({a['period']})"),
+            ("n / n_eff", f"{b['n']} / {b['n_effective']:.0f}", f"{a['n']} / {a['n_effective']:.0f}"),
+            ("mean", _num(b["mean"], u), _num(a["mean"], u))]
+    rows += [(f"p{p} [{conf}]", *(f"{_num(s[f'p{p}'], u)} [{_num(s[f'p{p}_low'])}, {_num(s[f'p{p}_high'])}]"
+                                   for s in (b, a))) for p in (50, 95, 99)]
+    lines = [head, ""] + _aligned(rows) + [
+        "", f"shift (Hodges-Lehmann, after - before): {_num(r['shift'], u)}"
+            f" [{_num(r['shift_low'], u)}, {_num(r['shift_high'], u)}] ({conf}, {r['shift_method']})",
+        f"Mann-Whitney: P(after > before) = {r['prob_after_higher']:.3f}, p = {r['p_value']:.2g} with effective"
+        f" sample sizes (p = {r['p_value_independent']:.2g} if the samples were independent)",
+        f"Kolmogorov-Smirnov: D = {r['ks_d']:.3f}, p = {r['ks_p']:.2g} (effective sizes)",
+        "", f"verdict: {r['verdict']}"]
+    return _fit(lines + _notes("cautions", r["cautions"]))
+
+
+def render_changes(r: dict[str, Any]) -> str:
+    """The counters that moved most, with score, direction, size in the unit and q-value."""
+    head = (f"changes in {r['period']} ({_text(r['start'])} .. {_text(r['end'])}) against {r['history_periods']}"
+            f" earlier periods ({', '.join(r['history_labels'][:3])}{', ...' if r['history_periods'] > 3 else ''}):"
+            f" {r['counters_scored']} counters scored, {r['passing']} with q < {r['fdr']:g}")
+    rows = [("#", "key", "score", "mean now", "usual", "change", "q", "")]
+    for i, x in enumerate(r["results"], 1):
+        pct = f"{x['change_pct']:+.1f}%" if x["change_pct"] is not None else "-"
+        rows.append((str(i), _cut(x["key"], 46), f"{x['score']:+.3g}", _num(x["mean"], x["unit"] or ""),
+                     _num(x["history_mean"]), pct, f"{x['q']:.2g}", "!" if x["note"] else ""))
+    lines = [head, ""] + (_aligned(rows, {2, 3, 4, 5}) if r["results"] else ["  no counter to score"])
+    lines += ["", "score: (period mean - median of the history's period means) / (1.4826 MAD of those means)",
+              "q: Benjamini-Hochberg over every counter scored; !: an unusual number of samples (see the json note)"]
+    if r["new"]:
+        lines += _notes(f"new in the period (fewer than 2 earlier periods with samples): {len(r['new'])}", r["new"][:20])
+    if r["silent"]:
+        lines += _notes(f"silent in the period (samples before, none now): {len(r['silent'])}", r["silent"][:20])
+    return _fit(lines + _notes("cautions", r["cautions"]))
+
+
+def render_limits(r: dict[str, Any]) -> str:
+    """Per counter: its levels, time and share beyond each, and the longest stretch beyond warn."""
+    head = (f"limits over {r['period']} ({_text(r['first_ts'])} .. {_text(r['last_ts'])}): {r['counters']} counters"
+            f" with levels from {', '.join(r['files'])}")
+    rows = [("key", "warn / crit", ">warn", "share", ">crit", "share", "longest")]
+    for x in r["results"]:
+        sign = ">" if x["direction"] == "above" else "<"
+        rows.append((_cut(x["key"], 38), f"{sign}{x['warn']:g} / {x['critical']:g}",
+                     format_duration(x["warn_seconds"]) if x["warn_seconds"] else "-", f"{x['warn_share']:.1%}",
+                     format_duration(x["critical_seconds"]) if x["critical_seconds"] else "-",
+                     f"{x['critical_share']:.1%}",
+                     format_duration(x["longest_warn_seconds"]) if x["longest_warn_seconds"] else "-"))
+    lines = [head, ""] + _aligned(rows, {2, 3, 4, 5, 6})
+    lines += ["", "longest: the longest stretch of consecutive samples beyond warn (start times in --format json)"]
+    return _fit(lines + _notes("cautions", r["cautions"]))
+
+
 def _bar(r: float, width: int = 12) -> str:
     cells = int(round(abs(r) * width))
     return ("#" * cells).ljust(width)
