@@ -26,7 +26,7 @@ from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
 OUT = HERE / "out"
-FIXTURE_VERSION = 3  # 3: row groups of 32 Ki rows
+FIXTURE_VERSION = 4  # 3: row groups of 32 Ki rows; 4: delta-encoded times, LZ4
 START = "2026-03-02T00:00:00"           # a Monday, UTC
 CHUNK_ROWS = 8192
 SOURCE = "bench"
