@@ -156,14 +156,14 @@ def render_changes(r: dict[str, Any]) -> str:
     head = (f"changes in {r['period']} ({_text(r['start'])} .. {_text(r['end'])}) against {r['history_periods']}"
             f" earlier periods ({', '.join(r['history_labels'][:3])}{', ...' if r['history_periods'] > 3 else ''}):"
             f" {r['counters_scored']} counters scored, {r['passing']} with q < {r['fdr']:g}")
-    rows = [("#", "key", "score", "mean now", "usual", "change", "q", "")]
+    rows = [("#", "key", "score", "mean now", "usual", "change", "q")]
     for i, x in enumerate(r["results"], 1):
         pct = f"{x['change_pct']:+.1f}%" if x["change_pct"] is not None else "-"
-        rows.append((str(i), _cut(x["key"], 46), f"{x['score']:+.3g}", _num(x["mean"], x["unit"] or ""),
-                     _num(x["history_mean"]), pct, f"{x['q']:.2g}", "!" if x["note"] else ""))
+        rows.append((f"{i}{'!' if x['note'] else ''}", _cut(x["key"], 42), f"{x['score']:+.1f}",
+                     _num(x["mean"], x["unit"] or ""), _num(x["history_mean"]), pct, f"{x['q']:.2g}"))
     lines = [head, ""] + (_aligned(rows, {2, 3, 4, 5}) if r["results"] else ["  no counter to score"])
     lines += ["", "score: (period mean - median of the history's period means) / (1.4826 MAD of those means)",
-              "q: Benjamini-Hochberg over every counter scored; !: an unusual number of samples (see the json note)"]
+              "q: Benjamini-Hochberg over every counter scored; 5!: an unusual number of samples (json: note)"]
     if r["new"]:
         lines += _notes(f"new in the period (fewer than 2 earlier periods with samples): {len(r['new'])}", r["new"][:20])
     if r["silent"]:
