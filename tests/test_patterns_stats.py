@@ -279,6 +279,24 @@ def test_office_hours_with_quiet_weekends() -> None:
         assert any(h == pytest.approx(7 * 86400.0 / 8, rel=0.02) for h in week.harmonics)
 
 
+def test_weak_cycle_under_a_dominant_office_day() -> None:
+    """Planted (synthetic, seeded): a square office-hours day (amplitude 10) with a weak 137-min
+    sine (amplitude 0.3-5) and white noise, 30 days of minutes. On the raw series the day makes
+    every lag of a few hours alike, so the 137-min cycle can only be confirmed once the day's
+    average shape is taken out; its far harmonics (beyond the 32 grouped) must not turn into
+    periods of their own once the day is gone. Found: exactly "1 day" and 137 min (within 1%)."""
+    n = 30 * DAY_BUCKETS
+    t = np.arange(n)
+    office = 10.0 * (((t % DAY_BUCKETS) >= 480) & ((t % DAY_BUCKETS) < 1080))
+    for seed, amp in enumerate((0.3, 0.5, 1.0, 2.0, 5.0)):
+        rng = np.random.default_rng(seed)
+        x = office + amp * np.sin(2 * np.pi * t / 137) + rng.normal(size=n)
+        found = find_periods(x, MINUTE, min_period=2 * MINUTE, max_period=7 * 86400.0)
+        assert len(found) == 2, [p.label for p in found]
+        _only(found, 86400.0, 0.01)
+        assert _only(found, 137 * MINUTE, 0.01).acf > 0.03
+
+
 def test_strong_rhythm_over_white_noise_gives_no_false_periods() -> None:
     """Planted (synthetic, seeded): a strong daily sine over white noise of several levels; the
     series' own r1 is 0.85-0.998 here, i.e. it describes the rhythm, not the noise. With the

@@ -23,6 +23,7 @@ from __future__ import annotations
 import heapq
 import math
 from dataclasses import dataclass, field
+from statistics import NormalDist
 
 import numpy as np
 from scipy import fft as sfft
@@ -470,12 +471,15 @@ def _check_period_args(dt: float, min_period: float, max_period: float, alpha: f
         raise ValueError(f"max_found must be at least 1, got {max_found!r}")
 
 
-def _acf_confirms(dev: _Deviations, period_bins: float) -> float | None:
+def _acf_confirms(dev: _Deviations, period_bins: float, z: float = 3.0) -> float | None:
     """ACF at the lag nearest the period if it confirms a cycle, else None.
 
-    Confirmed when that autocorrelation is > 0 *and* larger than at the lag nearest half the
-    period: a cycle makes the series more alike one period apart than half a period apart, while
-    the low-frequency power of a level shift or a bend in the trend gives an ACF that only decays.
+    A cycle makes the series more alike one period apart than half a period apart: with a share f
+    of the variance in the cycle, r(P) is about f and r(P/2) about -f. The low-frequency power of
+    a level shift or a bend in the trend gives an ACF that only decays, and noise gives two values
+    that differ by chance (each with standard error 1/sqrt(n)). Confirmed when r(P) > 0 and
+    r(P) - r(P/2) > z * sqrt(2/n); the caller sets z for the number of candidates it checks.
+    (A period of one bucket has no half lag: then r(P) > z/sqrt(n).)
     """
     n = dev.d.size
     lag = int(round(period_bins))
@@ -483,22 +487,76 @@ def _acf_confirms(dev: _Deviations, period_bins: float) -> float | None:
         return None
     r = _lag_ratio(dev, lag)
     half = max(1, int(round(period_bins / 2.0)))
-    if r <= 0.0 or (half < lag and r <= _lag_ratio(dev, half)):
+    se = 1.0 / np.sqrt(max(int(np.count_nonzero(dev.d)), 1))
+    if r <= 0.0:
+        return None
+    if half < lag:
+        if r - _lag_ratio(dev, half) <= z * np.sqrt(2.0) * se:
+            return None
+    elif r <= z * se:
         return None
     return r
 
 
-def _select(cands: list[_Line], dev: _Deviations, n: int, max_found: int) -> list[tuple[_Line, float]]:
+def _fold(d: np.ndarray, present: np.ndarray, period_bins: float) -> np.ndarray:
+    """The cycle's average shape (mean at each phase) laid along the series; 0 where missing.
+
+    Phases are ``round(period)`` slots of the (possibly fractional) period, so the fundamental and
+    all its harmonics are caught at once whatever the shape (a square office-hours rhythm as well
+    as a sine)."""
+    slots = max(2, int(round(period_bins)))
+    # A period known only to within half a Fourier bin (P^2 / 2n buckets) is folded on the nearest
+    # whole number of buckets when that lies inside: a fractional estimate of a whole-bucket rhythm
+    # would slide the folded shape along the series and leave its sharp edges in the rest.
+    if abs(period_bins - slots) <= period_bins * period_bins / (2.0 * d.size):
+        period_bins = float(slots)
+    phase = np.minimum((np.floor((np.arange(d.size) % period_bins) / period_bins * slots)).astype(np.int64),
+                       slots - 1)
+    total = np.bincount(phase, weights=np.where(present, d, 0.0), minlength=slots)
+    count = np.bincount(phase, weights=present, minlength=slots)
+    shape = np.divide(total, count, out=np.zeros(slots), where=count > 0)
+    return np.where(present, shape[phase], 0.0)
+
+
+def _without_cycles(dev: _Deviations, periods_bins: list[float], sweeps: int = 3) -> _Deviations:
+    """The deviations with the average shapes of all these cycles taken out, fitted jointly.
+
+    Each shape is refitted on the series minus the others (backfitting, a few sweeps): a shape
+    estimated alone also picks up part of every other cycle (a 137-bucket cycle does not average
+    out over 30 days of a 1,440-bucket fold), and that part would be left behind as a spurious
+    correlation at every short lag."""
+    d = dev.d
+    present = d != 0.0
+    shapes = [np.zeros_like(d) for _ in periods_bins]
+    for _ in range(sweeps if len(periods_bins) > 1 else 1):
+        for i, period in enumerate(periods_bins):
+            others = sum((shapes[j] for j in range(len(shapes)) if j != i), np.zeros_like(d))
+            shapes[i] = _fold(d - others, present, period)
+    r = np.where(present, d - sum(shapes, np.zeros_like(d)), 0.0)
+    if present.any():
+        r = np.where(present, r - r[present].mean(), 0.0)
+    return _Deviations(r, float(np.dot(r, r)))
+
+
+def _select(cands: list[_Line], dev: _Deviations, n: int, max_found: int,
+            alpha: float = 0.01) -> list[tuple[_Line, float]]:
     """Fundamentals in order of power, each with its ACF; then every other line grouped as harmonic.
 
     Pass 1: a candidate that is leakage of a stronger accepted line, a harmonic of a stronger
     fundamental, or a side peak of one is skipped; otherwise it becomes a fundamental if the ACF
-    confirms it (see ``_acf_confirms``) and is dropped if not. Pass 2: every significant line
-    that is not a fundamental is attached to the first (strongest) fundamental it is a harmonic
-    of, so a harmonic that came before its fundamental still counts for strength.
+    confirms it (see ``_acf_confirms``) and is dropped if not. The ACF is taken on the series with
+    the cycles already found taken out (``_without_cycles``): a strong daily rhythm makes the raw
+    series alike at every lag of a few hours, which would hide a weaker two-hour cycle.
+    Each check is a one-sided test of an autocorrelation against white noise, at level
+    alpha / (number of candidates) (Bonferroni), but never below 3 standard errors.
+    Pass 2: every significant line that is not a fundamental is attached to the first (strongest)
+    fundamental it is a harmonic of, so a harmonic that came before its fundamental still counts
+    for strength.
     """
     chosen: list[tuple[_Line, float]] = []
     accepted: list[_Line] = []
+    rest = dev
+    z = max(3.0, NormalDist().inv_cdf(1.0 - alpha / max(len(cands), 1)))
     for cand in cands:
         if len(chosen) >= max_found:
             break
@@ -507,10 +565,11 @@ def _select(cands: list[_Line], dev: _Deviations, n: int, max_found: int) -> lis
             continue
         if _is_side_peak(cand, [f for f, _ in chosen]):
             continue
-        r = _acf_confirms(dev, n / cand.bin)
+        r = _acf_confirms(rest, n / cand.bin, z)
         if r is not None:
             chosen.append((cand, r))
             accepted.append(cand)
+            rest = _without_cycles(dev, [n / f.bin for f, _ in chosen])
     fundamentals = {id(f) for f, _ in chosen}
     for cand in cands:
         if id(cand) in fundamentals:
@@ -552,10 +611,13 @@ def find_periods(
        a stronger period and within 30% of its frequency is a side peak of it (amplitude
        modulation such as quiet weekends around a daily rhythm, drift, the shoulder of a broad
        peak) and is not reported; otherwise it is a new finding if the ACF confirms it:
-    7. ACF check on the detrended series: ``acf`` = autocorrelation at the lag nearest the period.
-       A finding is dropped when that value is <= 0, and also when it is not larger than the
-       autocorrelation at the lag nearest half the period (the low-frequency power of a level
-       shift or a curved trend passes the spectral test, but its ACF only decays: no cycle).
+    7. ACF check on the detrended series with the stronger periods already found taken out (the
+       mean at each of their phases): ``acf`` = autocorrelation at the lag nearest the period.
+       A finding is dropped when that value is <= 0, or when it does not exceed the
+       autocorrelation at the lag nearest half the period by z * sqrt(2/n), z the one-sided normal
+       quantile at alpha over the number of candidates (Bonferroni; at least 3): the low-frequency
+       power of a level shift or a curved trend passes the spectral test, but its ACF only decays
+       (no cycle), and a far harmonic of a rhythm already taken out differs only by chance.
 
     ``strength`` = power in the lobes (+-2 bins) of the fundamental and its harmonics / total power
     (bins 1..n/2). Limits: periods whose harmonics lie outside [min_period, max_period] are not
@@ -582,7 +644,7 @@ def find_periods(
     bg = _fit_background(spec, alpha)
     omega = 2.0 * np.pi * np.arange(spec.power.size) / n
     ratio = spec.power / bg.at(omega)
-    chosen = _select(_candidates(spec, ratio, band, alpha), dev, n, max_found)
+    chosen = _select(_candidates(spec, ratio, band, alpha), dev, n, max_found, alpha)
     total = float(spec.power[1:].sum())
     found = [_period(f, r, spec, total, dt) for f, r in chosen]
     return sorted(found, key=lambda p: -p.strength)
