@@ -202,9 +202,7 @@ def main(argv: list[str] | None = None) -> None:
         return
     print(fx.machine_note())
     print(fx.code_note())
-    for case in [c.strip() for c in args.cases.split(",") if c.strip()]:
-        if case not in CASES:
-            raise SystemExit(f"unknown case {case!r}: use hl or changes")
+    for case in fx.pick(args.cases, CASES, "case"):
         job = {"seed": 20260302} if case == "hl" else changes_job()
         work = Path(tempfile.mkdtemp(prefix="compare-", dir=fx.OUT if fx.OUT.exists() else None))
         job_path = work / "job.json"

@@ -296,10 +296,7 @@ def parse_args(argv: list[str] | None = None) -> argparse.Namespace:
     ap.add_argument("--repeat", type=int, default=1,
                     help="rounds over all alternatives; each one's fastest wall is shown (with its work, cpu)")
     ap.add_argument("--profile", type=Path, help="folder for a cProfile dump of each child (NAME.prof)")
-    ap.add_argument("--out", type=Path, default=fx.OUT, help="work folder (default bench/out)")
-    ap.add_argument("--child", choices=sorted(CHILDREN), help=argparse.SUPPRESS)
-    ap.add_argument("--job", help=argparse.SUPPRESS)
-    ap.add_argument("--result", help=argparse.SUPPRESS)
+    fx.child_options(ap, CHILDREN)
     return ap.parse_args(argv)
 
 
@@ -308,11 +305,8 @@ def main(argv: list[str] | None = None) -> None:
     if args.child:
         child_main(args)
         return
-    names = [n.strip() for n in args.only.split(",") if n.strip()]
-    skip = {n.strip() for n in args.skip.split(",") if n.strip()}
-    bad = (set(names) | skip) - set(ALTERNATIVES)
-    if bad:
-        raise SystemExit(f"unknown alternative(s): {', '.join(sorted(bad))}")
+    names = fx.pick(args.only, ALTERNATIVES)
+    skip = set(fx.pick(args.skip, ALTERNATIVES))
     print(fx.machine_note())
     print(fx.code_note())
     out = args.out.resolve()

@@ -37,6 +37,9 @@ import time
 from dataclasses import dataclass
 from pathlib import Path
 
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+import warehouse_fixture as fx  # noqa: E402
+
 HERE = Path(__file__).resolve().parent
 GENERATOR_VERSION = 1
 CHUNK_ROWS = 2048
@@ -350,7 +353,7 @@ def report(runs: dict[str, Run], meta: dict[str, object]) -> None:
               f"{size / 1e6 / r.wall:7.1f} {values / 1e6 / r.wall:7.2f} {r.peak_kib / 1024:9.0f} "
               f"{(f'{out_mib:.0f}' if out_mib else '-'):>8} {vs_a:>7} {vs_o:>8} {_others(r):>6.0f}%")
     print("wall s: whole child process(es), start-up and imports included; work s: inside the child only;")
-    print(f"cpu s: user + system time of the child(ren); vs (a), vs ours: wall time ratio (above 1 = slower);")
+    print("cpu s: user + system time of the child(ren); vs (a), vs ours: wall time ratio (above 1 = slower);")
     print(f"others: CPU used meanwhile by other processes, in % of the machine's {os.cpu_count()} CPUs.")
     if any(_others(r) > 10 for r in runs.values()):
         print("WARNING: other processes were busy during some runs; their times are inflated "
@@ -420,10 +423,7 @@ def main(argv: list[str] | None = None) -> None:
     csv, meta = ensure_input(out, params)
     if args.generate_only:
         return
-    names = [n.strip() for n in args.only.split(",") if n.strip()]
-    unknown = set(names) - set(ALTERNATIVES)
-    if unknown:
-        raise SystemExit(f"unknown alternative(s): {', '.join(sorted(unknown))}")
+    names = fx.pick(args.only, ALTERNATIVES)
     warm_cache(csv)
     runs: dict[str, Run] = {}
     rounds = max(1, args.repeat)

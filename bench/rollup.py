@@ -207,10 +207,7 @@ def parse_args(argv: list[str] | None = None) -> argparse.Namespace:
     ap.add_argument("--quick", action="store_true", help="3 days instead of 4 weeks")
     ap.add_argument("--only", default=",".join(ALTERNATIVES), help=f"subset of {', '.join(ALTERNATIVES)}")
     ap.add_argument("--profile", help="write a cProfile dump of the pandas child to this path")
-    ap.add_argument("--out", type=Path, default=fx.OUT, help="work folder (default bench/out)")
-    ap.add_argument("--child", choices=sorted(CHILDREN), help=argparse.SUPPRESS)
-    ap.add_argument("--job", help=argparse.SUPPRESS)
-    ap.add_argument("--result", help=argparse.SUPPRESS)
+    fx.child_options(ap, CHILDREN)
     return ap.parse_args(argv)
 
 
@@ -219,9 +216,7 @@ def main(argv: list[str] | None = None) -> None:
     if args.child:
         child_main(args)
         return
-    names = [n.strip() for n in args.only.split(",") if n.strip()]
-    if set(names) - set(ALTERNATIVES):
-        raise SystemExit(f"unknown alternative(s): {', '.join(sorted(set(names) - set(ALTERNATIVES)))}")
+    names = fx.pick(args.only, ALTERNATIVES)
     print(fx.machine_note())
     print(fx.code_note())
     out = args.out.resolve()

@@ -170,10 +170,7 @@ def parse_args(argv: list[str] | None = None) -> argparse.Namespace:
     ap.add_argument("--repeat", type=int, default=1,
                     help="rounds over all alternatives; each one's fastest wall is shown (with its work, cpu)")
     ap.add_argument("--profile", help="write a cProfile dump of each Python child (not ours-cli) to this path")
-    ap.add_argument("--out", type=Path, default=fx.OUT, help="work folder (default bench/out)")
-    ap.add_argument("--child", choices=sorted(CHILDREN), help=argparse.SUPPRESS)
-    ap.add_argument("--job", help=argparse.SUPPRESS)
-    ap.add_argument("--result", help=argparse.SUPPRESS)
+    fx.child_options(ap, CHILDREN)
     return ap.parse_args(argv)
 
 
@@ -182,11 +179,8 @@ def main(argv: list[str] | None = None) -> None:
     if args.child:
         child_main(args)
         return
-    names = [n.strip() for n in args.only.split(",") if n.strip()]
-    cases = [c.strip() for c in args.cases.split(",") if c.strip()]
-    bad = (set(names) - set(ALTERNATIVES)) | (set(cases) - set(CASES))
-    if bad:
-        raise SystemExit(f"unknown alternative(s) or case(s): {', '.join(sorted(bad))}")
+    names = fx.pick(args.only, ALTERNATIVES)
+    cases = fx.pick(args.cases, CASES, "case")
     print(fx.machine_note())
     print(fx.code_note())
     out = args.out.resolve()

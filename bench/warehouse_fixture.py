@@ -14,6 +14,7 @@ counter shares its bursts at the same time ("partner") and one shares them three
 """
 from __future__ import annotations
 
+import argparse
 import json
 import math
 import os
@@ -412,3 +413,22 @@ def machine_note() -> str:
     load = os.getloadavg()
     return (f"machine: {os.cpu_count()} cores, {platform.python_implementation()} {platform.python_version()},"
             f" load average now {load[0]:.2f} / {load[1]:.2f} / {load[2]:.2f} (1/5/15 min; shared machine)")
+
+
+# -- command line ---------------------------------------------------------------------------------
+
+def child_options(ap: argparse.ArgumentParser, children: object) -> None:
+    """The options every benchmark shares: its work folder, and the hidden ones a child starts with."""
+    ap.add_argument("--out", type=Path, default=OUT, help="work folder (default bench/out)")
+    ap.add_argument("--child", choices=sorted(children), help=argparse.SUPPRESS)  # type: ignore[call-overload]
+    ap.add_argument("--job", help=argparse.SUPPRESS)
+    ap.add_argument("--result", help=argparse.SUPPRESS)
+
+
+def pick(text: str, allowed: object, what: str = "alternative") -> list[str]:
+    """A comma-separated choice such as --only, checked against what exists (SystemExit if unknown)."""
+    names = [n.strip() for n in text.split(",") if n.strip()]
+    bad = sorted(set(names) - set(allowed))  # type: ignore[call-overload]
+    if bad:
+        raise SystemExit(f"unknown {what}(s): {', '.join(bad)}; choose from {', '.join(sorted(allowed))}")  # type: ignore[call-overload]
+    return names
