@@ -14,7 +14,7 @@ from __future__ import annotations
 import math
 import os
 import time
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from datetime import date, datetime, timedelta, timezone
@@ -198,7 +198,7 @@ def _horizons(wh: Warehouse) -> None:
         FROM counter_defs d JOIN ingests i USING (source_id) GROUP BY d.counter_id""")
 
 
-_PERIOD_SQL = """
+_STATS_SQL = """
 WITH p AS (
     SELECT counter_id, ts, value, file_index FROM read_parquet({files})
     WHERE ts >= $lo AND ts < $hi AND counter_id BETWEEN $cid_lo AND $cid_hi AND value IS NOT NULL),
@@ -216,6 +216,12 @@ agg AS (
 shaped AS (
     SELECT a.*, h.busiest_hour_mean, coalesce(h.spacing, a.spread) AS interval_s, r.horizon_us
     FROM agg a JOIN per_hour h USING (counter_id) LEFT JOIN rollup_horizon r USING (counter_id))
+"""
+
+# The stored row from the per-counter statistics of one period (relation `shaped`: counter_id, n,
+# mean, var, lo, hi, q = [p50, p95, p99], files = indexes into $ingests, busiest_hour_mean,
+# interval_s, horizon_us). Shared by every engine, so each derives the columns the same way.
+ROWS_SQL = """
 SELECT $start::DATE AS period_start, counter_id, n,
        CASE WHEN interval_s > 0 THEN round($seconds / interval_s)::BIGINT END AS expected_n,
        mean, sqrt(var) AS sd, lo AS min, hi AS max, q[1] AS p50, q[2] AS p95, q[3] AS p99,
@@ -224,6 +230,7 @@ SELECT $start::DATE AS period_start, counter_id, n,
        $now::TIMESTAMPTZ AS computed_at,
        list_sort(list_distinct(list_transform(files, lambda i: ($ingests::VARCHAR[])[i::BIGINT + 1]))) AS ingest_ids
 FROM shaped ORDER BY counter_id"""
+_PERIOD_SQL = _STATS_SQL + ROWS_SQL
 
 
 def _files_for(wh: Warehouse, lo: datetime, hi: datetime) -> list[tuple[str, str, int]]:
@@ -232,6 +239,9 @@ def _files_for(wh: Warehouse, lo: datetime, hi: datetime) -> list[tuple[str, str
     return wh.con.execute(
         "SELECT relpath, ingest_id, rows FROM ingest_files WHERE day BETWEEN ? AND ? ORDER BY relpath",
         [lo.date(), last]).fetchall()
+
+
+files_for = _files_for   # for other engines: the same file choice per period
 
 
 def _counter_blocks(wh: Warehouse, points: int, budget: int) -> list[tuple[int, int]]:
@@ -244,21 +254,35 @@ def _counter_blocks(wh: Warehouse, points: int, budget: int) -> list[tuple[int, 
     return [(a, b - 1) for a, b in zip(edges, edges[1:]) if b > a]
 
 
+def period_bounds(kind: str, start: date, zone: str) -> tuple[datetime, datetime]:
+    """The instants (UTC) a period begins and ends: [lo, hi)."""
+    return local_midnight(start, zone), local_midnight(next_period(kind, start), zone)
+
+
+def hour_shift_us(lo: datetime, zone: str) -> int:
+    """What aligns clock hours to the zone (its offset's part below an hour), in microseconds."""
+    return int(lo.astimezone(ZoneInfo(zone)).utcoffset().total_seconds()) % 3600 * 1_000_000  # type: ignore[union-attr]
+
+
+def rows_params(start: date, lo: datetime, hi: datetime, *, coverage: float, now: datetime,
+                ingests: list[str]) -> dict[str, Any]:
+    """The parameters of ROWS_SQL for one period; `ingests` is what the `files` indexes name."""
+    return {"hi_us": int(hi.timestamp() * 1_000_000), "start": start, "seconds": (hi - lo).total_seconds(),
+            "k": math.sqrt(coverage / (1 - coverage)), "coverage": coverage, "now": now, "ingests": ingests}
+
+
 def compute_period(wh: Warehouse, kind: str, start: date, *, coverage: float, now: datetime,
                    budget: int = POINTS_PER_QUERY) -> list[pa.Table]:
     """The rows of one period, one Arrow table per block of counters."""
-    lo = local_midnight(start, wh.zone)
-    hi = local_midnight(next_period(kind, start), wh.zone)
+    lo, hi = period_bounds(kind, start, wh.zone)
     files = _files_for(wh, lo, hi)
     if not files:
         return []
-    shift = int(lo.astimezone(ZoneInfo(wh.zone)).utcoffset().total_seconds()) % 3600   # type: ignore[union-attr]
     listing = "[" + ", ".join(quote_literal(str(wh.home / f)) for f, _, _ in files) + "]"
     sql = _PERIOD_SQL.format(files=listing)
     params: dict[str, Any] = {
-        "lo": lo, "hi": hi, "hi_us": int(hi.timestamp() * 1_000_000), "start": start,
-        "seconds": (hi - lo).total_seconds(), "shift_us": shift * 1_000_000, "k": math.sqrt(coverage / (1 - coverage)),
-        "coverage": coverage, "now": now, "ingests": [i for _, i, _ in files]}
+        "lo": lo, "hi": hi, "shift_us": hour_shift_us(lo, wh.zone),
+        **rows_params(start, lo, hi, coverage=coverage, now=now, ingests=[i for _, i, _ in files])}
     out = []
     blocks = _counter_blocks(wh, sum(r for _, _, r in files), budget)
     wh.con.complete()   # sql() refuses to start while an execute() result is still open
@@ -301,8 +325,23 @@ def _summary(plan_: Plan, rows: pa.Table | None, seconds: float, mode: str) -> d
             "last_period": plan_.starts[-1] if plan_.starts else None, "seconds": round(seconds, 3)}
 
 
-def rollup(home: Path, req: RollupRequest, *, budget: int = POINTS_PER_QUERY) -> list[dict[str, Any]]:
-    """Recompute what `req` asks for and store it in one transaction; a summary per period kind."""
+# How an engine computes the rows of a plan: (warehouse, plan, coverage, now) -> Arrow tables with
+# the COLUMNS of the rollup tables. The default reads the points with DuckDB, one period at a time.
+ComputePlan = Callable[[Warehouse, Plan, float, datetime], list[pa.Table]]
+
+
+def compute_plan(wh: Warehouse, plan_: Plan, coverage: float, now: datetime, *,
+                 budget: int = POINTS_PER_QUERY) -> list[pa.Table]:
+    """Every period of a plan, with DuckDB."""
+    return [t for s in plan_.starts
+            for t in compute_period(wh, plan_.kind, s, coverage=coverage, now=now, budget=budget)]
+
+
+def rollup(home: Path, req: RollupRequest, *, budget: int = POINTS_PER_QUERY,
+           compute: ComputePlan | None = None) -> list[dict[str, Any]]:
+    """Recompute what `req` asks for and store it in one transaction; a summary per period kind.
+
+    `compute` replaces the DuckDB engine (planning, the lock and the write stay the same)."""
     import pyarrow.compute  # noqa: F401  (pa.compute in _summary)
 
     _check(req)
@@ -320,8 +359,8 @@ def rollup(home: Path, req: RollupRequest, *, budget: int = POINTS_PER_QUERY) ->
             work = []
             for kind in dict.fromkeys(req.periods):
                 p = plan(wh, kind, req)
-                parts = [t for s in p.starts for t in compute_period(wh, kind, s, coverage=coverage, now=now,
-                                                                      budget=budget)]
+                parts = (compute(wh, p, coverage, now) if compute is not None
+                         else compute_plan(wh, p, coverage, now, budget=budget))
                 work.append((p, pa.concat_tables(parts) if parts else None))
         with writer(home) as con:
             con.execute("BEGIN TRANSACTION")
