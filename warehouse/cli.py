@@ -229,22 +229,28 @@ def sql(ctx: Ctx, query: str, fmt: str, out: Path | None, write: bool) -> None:
 @click.option("--capacity", type=float, help="Capacity of the platform in the counter's unit, to compare against.")
 @click.option("--confidence", type=float, default=0.9, show_default=True, help="Confidence of the percentile's interval.")
 @click.option("--format", "fmt", type=FORMATS, default="table", show_default=True)
+@click.option("--plot", "plot_file", type=click.Path(path_type=Path), metavar="FILE.png|FILE.svg",
+              help="Also draw the result to a PNG or SVG file.")
 @pass_ctx
 @handle_errors
 def size(ctx: Ctx, selector: str, start: str | None, end: str | None, coverage: float, window: str,
          busiest_hours: int, days: str | None, combine: str | None, bucket: str, capacity: float | None,
-         confidence: float, fmt: str) -> None:
+         confidence: float, fmt: str, plot_file: Path | None) -> None:
     """Size capacity for SELECTOR: a distribution-free bound (Cantelli) beside peak, mean and percentiles.
 
     \b
     Example:
       warehouse --home ./wh size 'san01/pool=*/read_iops' --window busiest-hours --days mon-fri
+      warehouse --home ./wh size 'san01/pool=*/*_iops' --combine sum --window busiest-hours --plot size.png
     """
     from warehouse.render import render_sizing
     from warehouse.sizing import SizeRequest, size_selector
     req = SizeRequest(selector, start, end, coverage, window, days, combine, bucket, capacity, confidence, busiest_hours)
+    _check_plot(plot_file)
     with open_warehouse(ctx.home) as wh:
         result = size_selector(wh, req)
+        if plot_file:
+            _plot("plot_size", wh, req, result, plot_file)
     if fmt == "table":
         click.echo(render_sizing(result))
     elif fmt == "csv":
@@ -270,11 +276,13 @@ def size(ctx: Ctx, selector: str, start: str | None, end: str | None, coverage: 
               help="remove: subtract each series' hour-of-week median first, so the shared office rhythm does not"
                    " dominate (it also removes anything scheduled weekly at the same hour).")
 @click.option("--format", "fmt", type=FORMATS, default="table", show_default=True)
+@click.option("--plot", "plot_file", type=click.Path(path_type=Path), metavar="FILE.png|FILE.svg",
+              help="Also draw the result to a PNG or SVG file.")
 @pass_ctx
 @handle_errors
 def correlate(ctx: Ctx, target: str | None, against: str | None, start: str | None, end: str | None, bucket: str,
               method: str, max_lag: int, top: int | None, fdr: float, min_overlap: int, pairs: bool, rhythm: str,
-              fmt: str) -> None:
+              fmt: str, plot_file: Path | None) -> None:
     """Rank counters by how they move with TARGET (or the strongest --pairs), with lead/lag and FDR control.
 
     lag +k means the counter moves k buckets BEFORE the target (it leads).
@@ -287,10 +295,15 @@ def correlate(ctx: Ctx, target: str | None, against: str | None, start: str | No
     from warehouse.render import render_correlations, render_pairs
     if bool(target) == pairs:
         raise click.UsageError("give a TARGET, or --pairs without one")
+    if pairs and plot_file:
+        raise click.UsageError("--plot draws a target's suspects; it does not go with --pairs")
+    _check_plot(plot_file)
     req = CorrelateRequest(target, against, start, end, bucket, method, max_lag, top or (50 if pairs else 25),
                            fdr, min_overlap, pairs, rhythm)
     with open_warehouse(ctx.home) as wh:
         result = correlate_pairs(wh, req) if pairs else correlate_target(wh, req)
+        if plot_file:
+            _plot("plot_correlate", wh, req, result, plot_file)
     rows = result["pairs" if pairs else "results"]
     if fmt == "json":
         click.echo(render_mapping(result, "json"))
@@ -311,10 +324,12 @@ def correlate(ctx: Ctx, target: str | None, against: str | None, start: str | No
 @click.option("--gap", default="5m", show_default=True, help="Episodes closer than this are merged.")
 @click.option("--combine", type=click.Choice(["sum", "mean", "max"]), help="How several counters become one series.")
 @click.option("--format", "fmt", type=FORMATS, default="table", show_default=True)
+@click.option("--plot", "plot_file", type=click.Path(path_type=Path), metavar="FILE.png|FILE.svg",
+              help="Also draw the result to a PNG or SVG file.")
 @pass_ctx
 @handle_errors
 def patterns(ctx: Ctx, selector: str, start: str | None, end: str | None, bucket: str, min_period: str,
-             max_period: str, above: str, gap: str, combine: str | None, fmt: str) -> None:
+             max_period: str, above: str, gap: str, combine: str | None, fmt: str, plot_file: Path | None) -> None:
     """Find periodic peaks, episodes above a threshold, the weekday x hour profile and level shifts.
 
     \b
@@ -324,8 +339,11 @@ def patterns(ctx: Ctx, selector: str, start: str | None, end: str | None, bucket
     from warehouse.patterns import PatternRequest, find_patterns
     from warehouse.render import render_patterns
     req = PatternRequest(selector, start, end, bucket, min_period, max_period, above, gap, combine)
+    _check_plot(plot_file)
     with open_warehouse(ctx.home) as wh:
         result = find_patterns(wh, req)
+        if plot_file:
+            _plot("plot_patterns", wh, req, result, plot_file)
     if fmt == "json":
         click.echo(render_mapping(result, "json"))
     elif fmt == "csv":
@@ -373,10 +391,12 @@ def rollup(ctx: Ctx, periods: tuple[str, ...], mode: str | None, since: str | No
 @click.option("--horizon", "horizon_weeks", type=int, default=52, show_default=True,
               help="Weeks after the last one to look for the crossing.")
 @click.option("--format", "fmt", type=click.Choice(["table", "json"]), default="table", show_default=True)
+@click.option("--plot", "plot_file", type=click.Path(path_type=Path), metavar="FILE.png|FILE.svg",
+              help="Also draw the result to a PNG or SVG file.")
 @pass_ctx
 @handle_errors
 def trend(ctx: Ctx, selector: str, stat: str, capacity: float | None, combine: str | None, confidence: float,
-          horizon_weeks: int, fmt: str) -> None:
+          horizon_weeks: int, fmt: str, plot_file: Path | None) -> None:
     """Weekly series of a statistic, its growth per week (Theil-Sen) and when it reaches --capacity.
 
     \b
@@ -386,8 +406,11 @@ def trend(ctx: Ctx, selector: str, stat: str, capacity: float | None, combine: s
     from warehouse.render import render_trend
     from warehouse.trend import TrendRequest, trend as weekly_trend
     req = TrendRequest(selector, stat, capacity, combine, confidence, horizon_weeks)
+    _check_plot(plot_file)
     with open_warehouse(ctx.home) as wh:
         result = weekly_trend(wh, req)
+    if plot_file:
+        _plot("plot_trend", result, plot_file)
     click.echo(render_mapping(result, "json") if fmt == "json" else render_trend(result))
 
 
@@ -436,17 +459,19 @@ def check(ctx: Ctx, fix: bool, fmt: str) -> None:
 @cli.command()
 @click.option("--scale", type=click.Choice(["small", "large"]), default="small", show_default=True)
 @click.option("--keep-csv", type=click.Path(path_type=Path), help="Also keep the generated CSV files in this folder.")
+@click.option("--report", "report_file", type=click.Path(path_type=Path), metavar="FILE.html",
+              help="Where to write the story's report (default: report.html in --home).")
 @pass_ctx
 @handle_errors
-def demo(ctx: Ctx, scale: str, keep_csv: Path | None) -> None:
-    """Generate the invented demo scenario, load it into --home and show what it holds.
+def demo(ctx: Ctx, scale: str, keep_csv: Path | None, report_file: Path | None) -> None:
+    """Generate the invented demo scenario, load it into --home, run the whole story and write its report.
 
     \b
     Example:
-      warehouse --home ./demo-wh demo --scale small
+      warehouse --home ./demo-wh demo --scale small --report demo-report.html
     """
     from warehouse.demo import run_demo
-    for line in run_demo(ctx.home, scale=scale, keep_csv=keep_csv, quiet=ctx.quiet):
+    for line in run_demo(ctx.home, scale=scale, keep_csv=keep_csv, quiet=ctx.quiet, report=report_file):
         click.echo(line)
 
 
@@ -462,10 +487,12 @@ def demo(ctx: Ctx, scale: str, keep_csv: Path | None) -> None:
 @click.option("--bucket", default="1m", show_default=True, help="Time bucket (mean inside).")
 @click.option("--confidence", type=float, default=0.95, show_default=True, help="Confidence of the intervals.")
 @click.option("--format", "fmt", type=FORMATS, default="table", show_default=True)
+@click.option("--plot", "plot_file", type=click.Path(path_type=Path), metavar="FILE.png|FILE.svg",
+              help="Also draw the result to a PNG or SVG file.")
 @pass_ctx
 @handle_errors
 def compare(ctx: Ctx, selector: str, before: str, after: str, window: str, busiest_hours: int, days: str | None,
-            combine: str | None, bucket: str, confidence: float, fmt: str) -> None:
+            combine: str | None, bucket: str, confidence: float, fmt: str, plot_file: Path | None) -> None:
     """Did a change (upgrade, migration, patch) move SELECTOR? Distribution-free before/after test.
 
     \b
@@ -475,8 +502,11 @@ def compare(ctx: Ctx, selector: str, before: str, after: str, window: str, busie
     from warehouse.compare import CompareRequest, compare_periods
     from warehouse.render import render_compare
     req = CompareRequest(selector, before, after, window, days, busiest_hours, combine, bucket, confidence)
+    _check_plot(plot_file)
     with open_warehouse(ctx.home) as wh:
         result = compare_periods(wh, req)
+        if plot_file:
+            _plot("plot_compare", wh, req, result, plot_file)
     if fmt == "json":
         click.echo(render_mapping(result, "json"))
     elif fmt == "csv":
@@ -496,10 +526,12 @@ def compare(ctx: Ctx, selector: str, before: str, after: str, window: str, busie
 @click.option("--top", type=int, default=30, show_default=True, help="How many counters to list.")
 @click.option("--fdr", type=float, default=0.05, show_default=True, help="False discovery rate for the q-value count.")
 @click.option("--format", "fmt", type=FORMATS, default="table", show_default=True)
+@click.option("--plot", "plot_file", type=click.Path(path_type=Path), metavar="FILE.png|FILE.svg",
+              help="Also draw the result to a PNG or SVG file.")
 @pass_ctx
 @handle_errors
 def changes(ctx: Ctx, selector: str | None, period: str | None, start: str | None, end: str | None, history: int,
-            top: int, fdr: float, fmt: str) -> None:
+            top: int, fdr: float, fmt: str, plot_file: Path | None) -> None:
     """Rank every counter (or those matching SELECTOR) by how far a period departs from its own history.
 
     \b
@@ -508,8 +540,12 @@ def changes(ctx: Ctx, selector: str | None, period: str | None, start: str | Non
     """
     from warehouse.changes import ROW_KEYS, ChangesRequest, find_changes
     from warehouse.render import render_changes
+    _check_plot(plot_file)
+    req = ChangesRequest(period, start, end, history, top, selector, fdr)
     with open_warehouse(ctx.home) as wh:
-        result = find_changes(wh, ChangesRequest(period, start, end, history, top, selector, fdr))
+        result = find_changes(wh, req)
+        if plot_file:
+            _plot("plot_changes", wh, req, result, plot_file)
     if fmt == "json":
         click.echo(render_mapping(result, "json"))
     elif fmt == "csv":
@@ -544,6 +580,72 @@ def limits(ctx: Ctx, selector: str | None, period: str | None, top: int, limits_
         click.echo(render_rows(result["results"], list(ROW_KEYS), "csv"))
     else:
         click.echo(render_limits(result))
+
+
+@cli.command()
+@click.argument("selectors", nargs=-1)
+@click.option("--out", type=click.Path(path_type=Path), default=Path("report.html"), show_default=True,
+              help="The HTML file to write (self-contained: images inline).")
+@click.option("--pdf", type=click.Path(path_type=Path), metavar="FILE.pdf", help="Also write the figures and readings as a PDF.")
+@click.option("--title", default="Capacity and troubleshooting report", show_default=True)
+@click.option("--from", "start", metavar="T", help="Start of the range for sizing, patterns and suspects.")
+@click.option("--to", "end", metavar="T", help="End, exclusive.")
+@click.option("--window", default="all", show_default=True, metavar="all|busiest-hours|HH:MM-HH:MM", help="Sizing window.")
+@click.option("--busiest-hours", type=int, default=1, show_default=True, help="Hours per day picked by --window busiest-hours.")
+@click.option("--days", metavar="mon-fri", help="Weekdays to size on, e.g. mon-fri.")
+@click.option("--combine", type=click.Choice(["sum", "mean", "max"]), help="How several counters become one series.")
+@click.option("--bucket", default="1m", show_default=True, help="Time bucket (mean inside).")
+@click.option("--capacity", type=float, help="Capacity in the counters' unit, for sizing and trend.")
+@click.option("--suspects", multiple=True, metavar="TARGET", help="Rank suspects for TARGET (repeatable).")
+@click.option("--max-lag", type=int, default=0, show_default=True, help="Lags tried for --suspects, in buckets.")
+@click.option("--patterns", "pattern_selectors", multiple=True, metavar="SELECTOR",
+              help="Patterns of SELECTOR alone (repeatable; each SELECTORS argument gets one anyway).")
+@click.option("--max-period", default="8d", show_default=True, help="Longest period the patterns look for.")
+@click.option("--trend", "trend_selectors", multiple=True, metavar="SELECTOR", help="Weekly trend of SELECTOR (repeatable).")
+@click.option("--stat", type=click.Choice(["p95", "bound", "mean", "max", "p50", "p99"]), default="p95", show_default=True,
+              help="Weekly statistic for --trend.")
+@click.option("--before", metavar="PERIOD", help="With --after: compare each SELECTORS argument between two periods.")
+@click.option("--after", metavar="PERIOD")
+@click.option("--changes", "changes_period", metavar="PERIOD", help="Add what changed in PERIOD against its history.")
+@click.option("--format", "fmt", type=click.Choice(["table", "json"]), default="table", show_default=True)
+@pass_ctx
+@handle_errors
+def report(ctx: Ctx, selectors: tuple[str, ...], out: Path, pdf: Path | None, fmt: str, **options: Any) -> None:
+    """Write one self-contained HTML report: sizing and patterns of each SELECTOR, plus the analyses asked for.
+
+    Every section holds its figure, the key numbers, a plain-language reading, the method and
+    its assumptions, and its cautions.
+
+    \b
+    Example:
+      warehouse --home ./wh report 'san01/pool=*/*_iops' --combine sum --window busiest-hours --days mon-fri \\
+          --suspects 'san01/pool=vdi/read_latency_ms' --max-lag 5 --trend 'san01/pool=vdi/read_iops' --out report.html
+    """
+    from warehouse.report import ReportPlan, write_report
+    plan = ReportPlan(selectors=selectors, **options)
+    with open_warehouse(ctx.home) as wh:
+        written = write_report(wh, plan.request(), out, pdf)
+    if fmt == "json":
+        click.echo(render_mapping(written, "json"))
+        return
+    click.echo(f"report written to {written['out']} ({written['bytes']:,} bytes, {len(written['sections'])} sections,"
+               f" {written['seconds']:.1f} s)" + (f"; PDF {written['pdf']}" if written["pdf"] else ""))
+    for s in written["sections"]:
+        click.echo(f"  - {s['reading']}")
+
+
+def _check_plot(plot_file: Path | None) -> None:
+    """Refuse a bad plot file name before the analysis runs."""
+    if plot_file is not None:
+        from warehouse.plot import check_path
+        check_path(plot_file)
+
+
+def _plot(name: str, *args: Any) -> None:
+    """Draw with warehouse.plot.<name> (matplotlib is imported only now) and say where it went."""
+    from warehouse import plot
+    path = getattr(plot, name)(*args)
+    click.echo(f"plot written to {path}", err=True)
 
 
 def main() -> None:

@@ -1,10 +1,18 @@
-"""`warehouse demo`: generate the invented scenario, load it, and show a few answers."""
+"""`warehouse demo`: generate the invented scenario, load it, and tell its whole story.
+
+After the load: size the shared storage on its busiest hours, find the CPU spikes and their
+suspect, the counter that moves before the read latency, the destage period and the level shift,
+compare the weeks around the shift, roll up and follow the trend, list what changed, write one
+HTML report, and print where it is with three headline findings.
+"""
 from __future__ import annotations
 
 import tempfile
 import time
 from collections.abc import Iterator
+from datetime import timedelta
 from pathlib import Path
+from typing import Any
 
 from warehouse import catalog
 from warehouse.home import init_home, open_warehouse
@@ -34,7 +42,7 @@ EXAMPLES = (
 
 
 def run_demo(home: Path, *, scale: str = "small", keep_csv: Path | None = None,
-             quiet: bool = False) -> Iterator[str]:
+             quiet: bool = False, report: Path | None = None) -> Iterator[str]:
     """Yield the lines of the demo's story as it runs."""
     from seed.generate import generate
 
@@ -73,8 +81,131 @@ def run_demo(home: Path, *, scale: str = "small", keep_csv: Path | None = None,
     yield ""
     yield ("Cautions: the Cantelli bound holds for any distribution, so it can sit above the observed peak;"
            " it describes the observed period only: repeat it on other periods before buying.")
+    yield ""
+    yield from tell_story(home, report or home / "report.html")
+    yield ""
     yield f"Next: warehouse --home {home} counters '*latency*'"
 
 
 def _table_lines(rows: list[dict], columns: list[str]) -> Iterator[str]:
     yield from render_rows(rows, columns, "table").splitlines()
+
+
+# -- the story ---------------------------------------------------------------------------------------------
+
+STORAGE = "san01/pool=*/*_iops"
+HOST_CPU = "vdi-hv02/Processor/_Total/% Processor Time"
+READ_LATENCY = "san01/pool=vdi/read_latency_ms"
+WRITE_LATENCY = "san01/pool=vdi/write_latency_ms"
+POOL_READS = "san01/pool=vdi/read_iops"
+# The read IO/s the array's vdi pool is rated for: a figure invented for the demo, like the rest.
+POOL_READ_CAPACITY = 15000.0
+
+
+def _shift_up(result: dict[str, Any]) -> dict[str, Any] | None:
+    """The level shift that rose the most (after / before), if any rose."""
+    rises = [c for c in result["change_points"] if c["after_mean"] > c["before_mean"] > 0]
+    return max(rises, key=lambda c: c["after_mean"] / c["before_mean"], default=None)
+
+
+def _iso_week(day: Any) -> str:
+    year, week, _ = day.isocalendar()
+    return f"{year}-W{week:02d}"
+
+
+def _weeks_around(ts: Any) -> tuple[str, str]:
+    """The whole week before the shift, and the first whole week after it (its own week when it
+    starts on the Monday)."""
+    after = ts if ts.weekday() == 0 else ts + timedelta(days=7 - ts.weekday())
+    return _iso_week(after - timedelta(days=7)), _iso_week(after)
+
+
+def _longest(episodes: list[dict[str, Any]]) -> dict[str, Any]:
+    return max(episodes, key=lambda e: (e["seconds"], e["peak"]))
+
+
+def tell_story(home: Path, report_path: Path) -> Iterator[str]:
+    """Run each analysis on the loaded scenario, write the report, yield the story line by line."""
+    from warehouse.changes import ChangesRequest
+    from warehouse.compare import CompareRequest
+    from warehouse.correlate import CorrelateRequest
+    from warehouse.patterns import PatternRequest
+    from warehouse.report import Report, section, to_html
+    from warehouse.rollup import RollupRequest, rollup
+    from warehouse.sizing import SizeRequest
+    from warehouse.trend import TrendRequest
+
+    started = time.monotonic()
+    summary = rollup(home, RollupRequest(("week",), "due"))[0]
+    yield (f"rolled up weekly summaries: {summary['rows']} rows over {summary['periods']} week(s)" if summary["rows"]
+           else "weekly summaries already current")
+    sections = []
+    with open_warehouse(home) as wh:
+        def step(analysis: Any) -> Any:
+            s = section(wh, analysis)
+            sections.append(s)
+            return s
+
+        sized = step(SizeRequest(STORAGE, combine="sum", window="busiest-hours", days="mon-fri"))
+        yield f"1. size the shared storage on busiest hours: {sized.reading[0]}"
+        spikes = step(PatternRequest(HOST_CPU, above="p99", max_period="2h"))
+        spell = _longest(spikes.result["episodes"])
+        yield (f"2. CPU spikes on vdi-hv02: {len(spikes.result['episodes'])} spells above its p99; the longest"
+               f" {spell['start']:%a %d %b %H:%M}-{spell['end']:%H:%M}")
+        suspects = step(CorrelateRequest(HOST_CPU, start=(spell["start"] - timedelta(hours=1)).isoformat(),
+                                         end=(spell["start"] + timedelta(hours=2)).isoformat()))
+        yield f"   {suspects.reading[0]}"
+        lead = step(CorrelateRequest(READ_LATENCY, max_lag=5))
+        yield f"3. what moves before the read latency: {lead.reading[0]}"
+        destage = step(PatternRequest(WRITE_LATENCY, max_period="2h"))
+        yield f"4. {destage.reading[0]}"
+        shift = step(PatternRequest(POOL_READS))
+        rise = _shift_up(shift.result)
+        yield f"5. {shift.reading[0]}"
+        compared = None
+        if rise is not None:
+            before, after = _weeks_around(rise["ts"])
+            yield f"   the level rose around {rise['ts']:%a %d %b %Y %H:%M}; comparing {before} with {after}"
+            compared = step(CompareRequest(POOL_READS, before, after))
+            yield f"   {compared.reading[0]}"
+            step(ChangesRequest(period=after, history=8))
+        trend = step(TrendRequest(POOL_READS, capacity=POOL_READ_CAPACITY))
+        yield f"6. {trend.reading[0]}"
+        report = Report("Quillbrook Mutual Claims, Tannerfield office: the demo's story", _facts(wh), sections)
+    report_path = Path(report_path)
+    report_path.write_text(to_html(report), encoding="utf-8")
+    yield ""
+    yield f"report: {report_path.resolve()} ({len(sections)} sections, {time.monotonic() - started:.1f} s)"
+    yield "headline findings:"
+    for k, text in enumerate(headlines(suspects.result, spell, lead.result, destage.result, rise,
+                                       compared.result if compared else None), 1):
+        yield f"  {k}. {text}"
+
+
+def _facts(wh: Any) -> dict[str, Any]:
+    from warehouse.report import _facts as facts
+    return facts(wh)
+
+
+def headlines(suspects: dict[str, Any], spell: dict[str, Any], lead: dict[str, Any], destage: dict[str, Any],
+              rise: dict[str, Any] | None, compared: dict[str, Any] | None) -> list[str]:
+    """The three findings worth a meeting: the spikes' suspect (and what leads the latency), the
+    storage's periodic pulse, and the level shift with its size."""
+    from warehouse.plot import lag_words
+
+    first, leader = suspects["results"][0], lead["results"][0]
+    out = [f"vdi-hv02's CPU spikes ({spell['start']:%a %H:%M}, {(spell['end'] - spell['start']).seconds // 60} min):"
+           f" first suspect {first['key']} (r {first['r']:+.2f}, {lag_words(first['lag'], suspects['bucket_seconds'])});"
+           f" the read latency follows {leader['key']}, which {lag_words(leader['lag'], lead['bucket_seconds'])}"
+           f" (r {leader['r']:+.2f})"]
+    period = destage["periods"][0] if destage["periods"] else None
+    out.append(f"{destage['selector']} pulses every {period['label']} ({period['strength']:.0%} of its variance):"
+               " a periodic flush such as a cache destage" if period else f"no period found in {destage['selector']}")
+    if rise is None or compared is None:
+        out.append(f"no lasting rise found in {POOL_READS}")
+    else:
+        b, a = compared["before"], compared["after"]
+        out.append(f"{POOL_READS} rose around {rise['ts']:%a %d %b %Y %H:%M}: median {b['p50']:,.0f} in {b['period']},"
+                   f" {a['p50']:,.0f} in {a['period']} ({(a['p50'] / b['p50'] - 1) * 100:+.0f}%), p95 {b['p95']:,.0f}"
+                   f" -> {a['p95']:,.0f}")
+    return out
