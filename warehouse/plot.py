@@ -183,8 +183,8 @@ def size_figure(result: dict[str, Any], series: Any) -> Any:
     ax, side = fig.add_subplot(grid[0, :3]), fig.add_subplot(grid[0, 3])
     _draw_series(ax, series.times, series.values, TEAL, "combined series")
     if result["window"] != "all" or result["days"] not in ("mon-sun", None):
-        _shade(ax, series.times, series.mask, result["bucket_seconds"] * 1_000_000, SAND,
-               "sized buckets (window and days)")
+        _shade(ax, series.times, series.mask, result["bucket_seconds"] * 1_000_000, AMBER,
+               "sized buckets (window and days)", alpha=0.3)
     lines = (("peak", result["max"], INK, ":"), ("p95", result["p95"], AMBER, "--"),
              (f"bound (Cantelli {result['coverage_target']:.0%})", result["bound"], BRICK, "-"),
              ("mean", result["mean"], MUTED, "-."))
@@ -200,9 +200,9 @@ def size_figure(result: dict[str, Any], series: Any) -> Any:
     x = series.values[series.mask]
     _ecdf(side, x[np.isfinite(x)], TEAL, "sized samples")
     side.axhline(result["coverage_observed"], color=BRICK, lw=0.8, ls=":")
-    side.annotate(f"{result['coverage_observed']:.1%} at or\nbelow the bound", xy=(result["bound"],
-                  result["coverage_observed"]), xytext=(-4, -22), textcoords="offset points", ha="right",
-                  fontsize=7, color=BRICK)
+    side.annotate(f"{result['coverage_observed']:.1%} of sized\nsamples at or\nbelow the bound", xy=(0.97, 0.04),
+                  xycoords="axes fraction", ha="right", va="bottom", fontsize=7, color=BRICK,
+                  bbox={"boxstyle": "square,pad=0.2", "fc": "white", "ec": "none"})
     side.set_xlabel(_unit_label(u))
     side.set_ylabel("share of sized samples at or below")
     side.set_ylim(0, 1.02)
