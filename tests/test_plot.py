@@ -92,6 +92,7 @@ def test_size_plot_shows_the_sized_buckets(demo_home: Path, tmp_path: Path) -> N
     words = svg_words(check_svg(tmp_path / "size.svg", "size san01/pool=*/*_iops"))
     assert f"bound (Cantelli 95%) {result['bound']:,.0f}" in words and f"peak {result['max']:,.0f}" in words
     assert "time (Europe/Berlin)" in words                # axis labelled with the warehouse zone
+    assert "caution: the bound describes the observed period only" in words   # carried by the figure itself
 
 
 def test_correlate_plot_ranks_suspects_and_overlays_them(demo_home: Path, tmp_path: Path) -> None:
@@ -107,6 +108,7 @@ def test_correlate_plot_ranks_suspects_and_overlays_them(demo_home: Path, tmp_pa
     assert spearmanr(target, first).statistic == pytest.approx(result["results"][0]["r"], abs=1e-9)
     words = svg_words(check_svg(tmp_path / "c.svg", f"correlate {HOST_CPU}"))
     assert f"{result['results'][0]['r']:+.2f} *  same time" in words
+    assert "caution: correlation points where to look; it is not a cause" in words
 
 
 def test_overlay_cut_around_the_peak() -> None:

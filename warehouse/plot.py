@@ -93,10 +93,11 @@ def to_bytes(fig: Any, fmt: str = "png", *, dpi: int = 110) -> bytes:
     return buf.getvalue()
 
 
-def _title(fig: Any, title: str, subtitle: str = "") -> None:
+def _title(fig: Any, title: str, subtitle: str = "", caution: str = "") -> None:
+    """Title, what was measured, and the caution a figure handed over alone must carry."""
     fig._warehouse_title = title
-    fig.suptitle(title + (f"\n{subtitle}" if subtitle else ""), fontsize=9.5, color=INK, x=0.01,
-                 horizontalalignment="left")
+    fig.suptitle(title + (f"\n{subtitle}" if subtitle else "") + (f"\ncaution: {caution}" if caution else ""),
+                 fontsize=9.5, color=INK, x=0.01, horizontalalignment="left")
 
 
 def _num(value: float | None, unit: str = "") -> str:
@@ -210,7 +211,8 @@ def size_figure(result: dict[str, Any], series: Any) -> Any:
     window = result["window"] + (f" ({result['busiest_hours']} h/day)" if result["busiest_hours"] else "")
     _title(fig, f"size {result['selector']}",
            f"{result['combine']} of {result['counters']} counter(s), {result['bucket_seconds']} s buckets,"
-           f" window {window}, days {result['days']}; n = {result['n']:,}")
+           f" window {window}, days {result['days']}; n = {result['n']:,}",
+           "the bound describes the observed period only; repeat on other periods before buying")
     return fig
 
 
@@ -250,8 +252,9 @@ def correlate_figure(result: dict[str, Any], overlay: list[Any], top: int = 10) 
     for y, row in zip(ypos, rows):
         mark = " *" if row["q"] < result.get("fdr", 0.05) else ""
         text = f"{row['r']:+.2f}{mark}  {lag_words(row['lag'], result['bucket_seconds'])}"
-        bars.annotate(text, xy=(row["r"], y), xytext=(4 if row["r"] >= 0 else -4, 0), textcoords="offset points",
-                      ha="left" if row["r"] >= 0 else "right", va="center", fontsize=7)
+        # Negative bars get their label right of zero, clear of the counter names on the left.
+        bars.annotate(text, xy=(max(row["r"], 0.0), y), xytext=(4, 0), textcoords="offset points",
+                      ha="left", va="center", fontsize=7)
     bars.set_yticks(ypos, [_short(row["key"]) for row in rows], fontsize=7)
     bars.set_xlim(-1.35, 1.35)
     bars.axvline(0, color=INK, lw=0.6)
@@ -272,7 +275,8 @@ def correlate_figure(result: dict[str, Any], overlay: list[Any], top: int = 10) 
     over.legend(loc="upper left", ncols=1, fontsize=6.5)
     _title(fig, f"correlate {result['target']}",
            f"{result['method']}, {result['bucket_seconds']} s buckets, lags -{result['max_lag']}..+{result['max_lag']},"
-           f" rhythm {result['rhythm']}: {result['passing']} of {result['tested']} tests pass q < {result['fdr']}")
+           f" rhythm {result['rhythm']}: {result['passing']} of {result['tested']} tests pass q < {result['fdr']}",
+           "correlation points where to look; it is not a cause")
     return fig
 
 
@@ -334,7 +338,8 @@ def patterns_figure(result: dict[str, Any], series: Any, spectrum: Any) -> Any:
     found = ", ".join(f"every {p['label']}" for p in result["periods"]) or "no period passed the test"
     _title(fig, f"patterns {result['selector']}",
            f"{result['bucket_seconds']} s buckets: {found}; {len(result['episodes'])} episode(s);"
-           f" {len(result['change_points'])} level shift(s)")
+           f" {len(result['change_points'])} level shift(s)",
+           "" if result["periods"] else "not finding a pattern does not prove there is none")
     return fig
 
 
@@ -389,7 +394,9 @@ def trend_figure(result: dict[str, Any], lines: list[Any], most: int = 4) -> Any
     _title(fig, f"trend {result['selector']}",
            f"weekly {result['stat']}" + (f", {result['combine']} of the counters" if result["combine"] else "")
            + f"; Theil-Sen line, {result['confidence']:.0%} band"
-           + (f"; {len(lines) - most} more series not drawn" if len(lines) > most else ""))
+           + (f"; {len(lines) - most} more series not drawn" if len(lines) > most else ""),
+           "the line extrapolates these weeks; projects, migrations and seasons break it"
+           if result["capacity"] is not None else "")
     return fig
 
 
@@ -420,7 +427,8 @@ def compare_figure(result: dict[str, Any], before: np.ndarray, after: np.ndarray
            f"window {result['window']}, days {result['days']}: "
            + ("changed" if result["changed"] else "no clear change")
            + f" (Mann-Whitney p = {result['p_value']:.2g}, about {b['n_effective']:.0f} + {a['n_effective']:.0f}"
-             " independent samples)")
+             " independent samples)",
+           "a difference between two periods does not prove the change you made caused it")
     return fig
 
 
