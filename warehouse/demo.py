@@ -130,7 +130,7 @@ def tell_story(home: Path, report_path: Path) -> Iterator[str]:
     from warehouse.compare import CompareRequest
     from warehouse.correlate import CorrelateRequest
     from warehouse.patterns import PatternRequest
-    from warehouse.report import Report, section, to_html
+    from warehouse.report import Report, data_facts, section, to_html
     from warehouse.rollup import RollupRequest, rollup
     from warehouse.sizing import SizeRequest
     from warehouse.trend import TrendRequest
@@ -171,7 +171,7 @@ def tell_story(home: Path, report_path: Path) -> Iterator[str]:
             step(ChangesRequest(period=after, history=8))
         trend = step(TrendRequest(POOL_READS, capacity=POOL_READ_CAPACITY))
         yield f"6. {trend.reading[0]}"
-        report = Report("Quillbrook Mutual Claims, Tannerfield office: the demo's story", _facts(wh), sections)
+        report = Report("Quillbrook Mutual Claims, Tannerfield office: the demo's story", data_facts(wh), sections)
     report_path = Path(report_path)
     report_path.write_text(to_html(report), encoding="utf-8")
     yield ""
@@ -180,11 +180,6 @@ def tell_story(home: Path, report_path: Path) -> Iterator[str]:
     for k, text in enumerate(headlines(suspects.result, spell, lead.result, destage.result, rise,
                                        compared.result if compared else None), 1):
         yield f"  {k}. {text}"
-
-
-def _facts(wh: Any) -> dict[str, Any]:
-    from warehouse.report import _facts as facts
-    return facts(wh)
 
 
 def headlines(suspects: dict[str, Any], spell: dict[str, Any], lead: dict[str, Any], destage: dict[str, Any],

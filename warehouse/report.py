@@ -335,7 +335,8 @@ def section(wh: Warehouse, analysis: Any, dpi: int = 110) -> Section:
     raise WarehouseError(f"cannot put a {type(analysis).__name__} in a report")
 
 
-def _facts(wh: Warehouse) -> dict[str, Any]:
+def data_facts(wh: Warehouse) -> dict[str, Any]:
+    """What the report describes: zone, range, counters, points, rows quarantined, when it was made."""
     status = catalog.status(wh)
     return {"zone": wh.zone, "counters": status.get("counters"), "points": status.get("points"),
             "first_ts": status.get("first_ts"), "last_ts": status.get("last_ts"),
@@ -348,7 +349,7 @@ def build_report(wh: Warehouse, req: ReportRequest) -> Report:
         raise WarehouseError("nothing to report: give SELECTORS, or --suspects, --patterns, --trend,"
                              " --compare or --changes")
     sections = [section(wh, a, req.dpi) for a in req.analyses]
-    report = Report(req.title, _facts(wh), sections)
+    report = Report(req.title, data_facts(wh), sections)
     report.html = to_html(report)
     return report
 
