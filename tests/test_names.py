@@ -36,6 +36,11 @@ from warehouse.ingest.names import counter_from_header, parse_counter_path, spli
     # snake-case endings
     ("commit_latency_ms", ("commit_latency_ms", "ms")),
     ("mem_used_pct", ("mem_used_pct", "%")),
+    ("read_iops", ("read_iops", "IO/s")),
+    ("capacity_total_gb", ("capacity_total_gb", "GB")),
+    ("mem_used_mb", ("mem_used_mb", "MB")),
+    ("net2_in_kbps", ("net2_in_kbps", "kbit/s")),
+    ("uplink_mbps", ("uplink_mbps", "Mbit/s")),
     ("net_rx_bytes", ("net_rx_bytes", "B")),
     # nothing to infer
     ("net_rx_bytes_total", ("net_rx_bytes_total", "")),

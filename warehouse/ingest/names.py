@@ -24,7 +24,8 @@ _RATE = re.compile(r"/\s*(?:sec|s)$", re.I)
 _BYTE_RATE = re.compile(r"(?<![A-Za-z])((?:[KMGT]i?)?B)\s*/\s*(?:sec|s)$")
 _SCALED_BYTES = re.compile(r"(?<![A-Za-z])([KMG])Bytes", re.I)
 _BYTES_WORD = re.compile(r"Bytes", re.I)
-_SNAKE_SUFFIX = {"_ms": "ms", "_pct": "%", "_bytes": "B"}
+_SNAKE_SUFFIX = {"_ms": "ms", "_pct": "%", "_bytes": "B", "_iops": "IO/s", "_mb": "MB", "_gb": "GB",
+                 "_kbps": "kbit/s", "_mbps": "Mbit/s"}
 
 
 def _suffix_unit(name: str) -> tuple[str, str] | None:
