@@ -19,9 +19,15 @@ FORMATS = click.Choice(["table", "json", "csv"])
 
 
 class Ctx:
-    def __init__(self, home: str | None, quiet: bool) -> None:
+    def __init__(self, home: str | None, quiet: bool, engine: str = "duckdb", spark_master: str = "local[*]") -> None:
         self.home = resolve_home(home)
         self.quiet = quiet
+        self.engine_name = engine
+        self.spark_master = spark_master
+
+    def engine(self) -> Any:
+        from warehouse.engine import Engine
+        return Engine(self.engine_name, self.spark_master)
 
 
 def handle_errors(fn: Callable[..., Any]) -> Callable[..., Any]:
@@ -34,6 +40,12 @@ def handle_errors(fn: Callable[..., Any]) -> Callable[..., Any]:
             raise click.ClickException(str(exc)) from exc
         except duckdb.Error as exc:
             raise click.ClickException(" ".join(str(exc).split())) from exc
+        except Exception as exc:
+            # --engine spark: a failed Spark job (py4j / pyspark errors) is one line too
+            if type(exc).__module__.split(".")[0] not in ("pyspark", "py4j"):
+                raise
+            first = next((line for line in str(exc).splitlines() if line.strip()), type(exc).__name__)
+            raise click.ClickException(f"Spark: {first.strip()}") from exc
     return wrapper
 
 
@@ -42,16 +54,22 @@ def handle_errors(fn: Callable[..., Any]) -> Callable[..., Any]:
 @click.option("--home", envvar="WAREHOUSE_HOME", metavar="DIR",
               help="Warehouse folder (default: $WAREHOUSE_HOME, else ./warehouse-data).")
 @click.option("--quiet", "-q", is_flag=True, help="No progress bars.")
+@click.option("--engine", type=click.Choice(["duckdb", "spark"]), default="duckdb", show_default=True,
+              envvar="WAREHOUSE_ENGINE", help="What reads the points for rollup, size and correlate (target-vs-all);"
+              " spark needs the [spark] extra and Java.")
+@click.option("--spark-master", default="local[*]", show_default=True, metavar="URL", envvar="WAREHOUSE_SPARK_MASTER",
+              help="Spark master for --engine spark, e.g. spark://head:7077, yarn, or local[*].")
 @click.pass_context
-def cli(ctx: click.Context, home: str | None, quiet: bool) -> None:
+def cli(ctx: click.Context, home: str | None, quiet: bool, engine: str, spark_master: str) -> None:
     """Bulk-load performance-counter CSV exports and ask sizing and troubleshooting questions.
 
     \b
     Example:
       warehouse --home ./wh init --zone Europe/Berlin
       warehouse --home ./wh ingest exports/*.csv --source office-hosts
+      warehouse --home ./wh --engine spark --spark-master spark://head:7077 rollup --all
     """
-    ctx.obj = Ctx(home, quiet)
+    ctx.obj = Ctx(home, quiet, engine, spark_master)
 
 
 pass_ctx = click.make_pass_decorator(Ctx)
@@ -243,12 +261,13 @@ def size(ctx: Ctx, selector: str, start: str | None, end: str | None, coverage: 
       warehouse --home ./wh size 'san01/pool=*/read_iops' --window busiest-hours --days mon-fri
       warehouse --home ./wh size 'san01/pool=*/*_iops' --combine sum --window busiest-hours --plot size.png
     """
+    from warehouse.engine import size as size_on
     from warehouse.render import render_sizing
-    from warehouse.sizing import SizeRequest, size_selector
+    from warehouse.sizing import SizeRequest
     req = SizeRequest(selector, start, end, coverage, window, days, combine, bucket, capacity, confidence, busiest_hours)
     _check_plot(plot_file)
     with open_warehouse(ctx.home) as wh:
-        result = size_selector(wh, req)
+        result = size_on(wh, req, ctx.engine())
         if plot_file:
             _plot("plot_size", wh, req, result, plot_file)
     if fmt == "table":
@@ -291,7 +310,8 @@ def correlate(ctx: Ctx, target: str | None, against: str | None, start: str | No
     Example:
       warehouse --home ./wh correlate 'vdi-hv02/Processor/_Total/*' --max-lag 5 --top 10
     """
-    from warehouse.correlate import CorrelateRequest, correlate_pairs, correlate_target
+    from warehouse.correlate import CorrelateRequest
+    from warehouse.engine import correlate as correlate_on
     from warehouse.render import render_correlations, render_pairs
     if bool(target) == pairs:
         raise click.UsageError("give a TARGET, or --pairs without one")
@@ -301,7 +321,7 @@ def correlate(ctx: Ctx, target: str | None, against: str | None, start: str | No
     req = CorrelateRequest(target, against, start, end, bucket, method, max_lag, top or (50 if pairs else 25),
                            fdr, min_overlap, pairs, rhythm)
     with open_warehouse(ctx.home) as wh:
-        result = correlate_pairs(wh, req) if pairs else correlate_target(wh, req)
+        result = correlate_on(wh, req, ctx.engine())
         if plot_file:
             _plot("plot_correlate", wh, req, result, plot_file)
     rows = result["pairs" if pairs else "results"]
@@ -371,12 +391,13 @@ def rollup(ctx: Ctx, periods: tuple[str, ...], mode: str | None, since: str | No
     Example:
       warehouse --home ./wh rollup --due --period week --period month
     """
+    from warehouse.engine import rollup as run_rollup
     from warehouse.render import render_rollup
-    from warehouse.rollup import RollupRequest, rollup as run_rollup
+    from warehouse.rollup import RollupRequest
     if since is not None and mode is not None:
         raise click.UsageError("--since cannot go with --due or --all")
     req = RollupRequest(periods or ("week",), "since" if since is not None else (mode or "due"), since)
-    summaries = run_rollup(ctx.home, req)
+    summaries = run_rollup(ctx.home, req, ctx.engine())
     click.echo(render_mapping({"rollups": summaries}, "json") if fmt == "json" else render_rollup(summaries))
 
 
