@@ -117,8 +117,8 @@ def _decode(head: bytes, encoding: str, truncated: bool) -> str:
 
 
 def _looks_binary(head: bytes, encoding: str, text: str) -> bool:
-    if encoding != "utf-16" and b"\x00" in head:
-        return True
+    # A stray NUL in one cell is damage to quarantine, not a reason to refuse the file: NULs count
+    # with the other control characters towards the share.
     if not text:
         return False
     return len(_ODD_CHARS.findall(text)) / len(text) > _BINARY_SHARE

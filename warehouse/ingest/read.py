@@ -261,6 +261,22 @@ class FileReader:
             self.log.cells.append((int(rows[i]), name, text, _reason_for_bad_cell(text)))
         self.counts.cells_quarantined += int(bad.sum())
 
+    def _unnamed_cells(self, rb: pa.RecordBatch, keep: np.ndarray, rows: np.ndarray) -> None:
+        """Text in a column without a header name has no counter to go to: quarantined, never dropped."""
+        for j in self.layout.ignore_cols:
+            if self.layout.columns[j] or j >= rb.num_columns:
+                continue
+            col = _strings(rb.column(j))
+            if col.null_count == len(col):
+                continue
+            present = ~np.asarray(pc.is_null(col).to_numpy(zero_copy_only=False), dtype=bool) & keep
+            if present.any():
+                raw = col.take(pa.array(np.flatnonzero(present))).to_pylist()
+                for i, text in zip(np.flatnonzero(present), raw):
+                    self.log.cells.append((int(rows[i]), f"column {j + 1}", text,
+                                           "value in a column without a header name"))
+                self.counts.cells_quarantined += int(present.sum())
+
     # -- wide kinds -------------------------------------------------------------------------
     def wide_names(self) -> list[CounterName]:
         """The counters a wide header names (computed once; repeated headers are warned about)."""
@@ -313,6 +329,7 @@ class FileReader:
                     if bad.any():
                         self._cell_rejects(bad, col, rows, lay.columns[j])
                     columns.append(values[keep] if not keep.all() else values)
+            self._unnamed_cells(rb, keep, rows)
             kept = int(keep.sum())
             self.counts.rows_loaded += kept
             self.counts.rows_quarantined += n - kept
@@ -361,6 +378,7 @@ class FileReader:
             keep &= np.isfinite(values)
             names, idx = self._long_identity(rb, keep)
             keep = self._first_sample(idx, ts, keep, rows)
+            self._unnamed_cells(rb, keep, rows)
             kept = int(keep.sum())
             self.counts.rows_loaded += kept
             self.counts.rows_quarantined += n - kept
