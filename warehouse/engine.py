@@ -48,7 +48,8 @@ def size(wh: Warehouse, req: SizeRequest, engine: Engine) -> dict[str, Any]:
 def correlate(wh: Warehouse, req: CorrelateRequest, engine: Engine) -> dict[str, Any]:
     """Target-vs-all on either engine; --pairs on DuckDB only."""
     if engine.spark:
-        from warehouse.spark.analysis import correlate_target as on_spark
+        from warehouse.spark.analysis import correlate_target as on_spark, refuse
+        refuse(req)
         return on_spark(wh, req, engine.session())
     from warehouse.correlate import correlate_pairs, correlate_target
     return correlate_pairs(wh, req) if req.pairs else correlate_target(wh, req)

@@ -51,15 +51,20 @@ def size_selector(wh: Warehouse, req: SizeRequest, spark: Any) -> dict[str, Any]
     return {k: result.get(k) for k in sizing.KEYS}
 
 
-def correlate_target(wh: Warehouse, req: CorrelateRequest, spark: Any) -> dict[str, Any]:
-    """warehouse.correlate.correlate_target, with the target series, the ranks, the per-lag
-    co-moments and the counters' lag-1 autocorrelations computed by Spark. The target is small
-    (one value per bucket): it is ranked and its autocorrelation taken on the driver."""
+def refuse(req: CorrelateRequest) -> None:
+    """What the Spark engine does not do (checked before a session is started)."""
     duck_correlate._check(req)
     if req.pairs:
         raise WarehouseError("--pairs runs on the duckdb engine only: drop --engine spark")
     if req.rhythm == "remove":
         raise WarehouseError("--rhythm remove runs on the duckdb engine only: drop --engine spark, or keep the rhythm")
+
+
+def correlate_target(wh: Warehouse, req: CorrelateRequest, spark: Any) -> dict[str, Any]:
+    """warehouse.correlate.correlate_target, with the target series, the ranks, the per-lag
+    co-moments and the counters' lag-1 autocorrelations computed by Spark. The target is small
+    (one value per bucket): it is ranked and its autocorrelation taken on the driver."""
+    refuse(req)
     targets = select(wh, req.target or "")
     tids = [c.counter_id for c in targets]
     lo, hi = user_range(wh, tids, req.start, req.end)
