@@ -112,13 +112,32 @@ def _pid_alive(pid_file: Path) -> bool:
         return False
 
 
-def check(wh: Warehouse, *, fix: bool = False) -> dict[str, Any]:
+def check(wh: Warehouse, *, fix: bool = False, deep: bool = False, repair: bool = False) -> dict[str, Any]:
     """Do catalog and files agree? Lists missing files, orphans and stale staging folders.
 
     Orphans are Parquet files no committed ingest lists (left by a crash between moving files
     into place and committing); they are invisible to queries. `fix` deletes orphans and staging
-    folders whose writing process is gone, never a file the catalog lists.
+    folders whose writing process is gone, never a file the catalog lists. `deep` re-reads every
+    listed file against its row count and checksum (warehouse/integrity.py); `repair` (implies
+    `deep`) sets damaged and missing files aside and drops them from the catalog.
     """
+    report = _shallow(wh, fix=fix)
+    if not (deep or repair):
+        return report
+    from warehouse import integrity
+    found = integrity.verify(wh)
+    damaged = found["damaged"]
+    report.update(deep=True, files_checked=found["files_checked"],
+                  files_without_checksum=found["files_without_checksum"],
+                  damaged=[d.as_dict() for d in damaged], repaired=[])
+    if repair:
+        report["repaired"] = integrity.repair(wh.home, damaged)
+        report["missing"] = []
+    report["ok"] = report["ok"] and not damaged
+    return report
+
+
+def _shallow(wh: Warehouse, *, fix: bool) -> dict[str, Any]:
     listed = {r[0] for r in wh.con.execute("SELECT relpath FROM ingest_files").fetchall()}
     listed |= {r[0] for r in wh.con.execute(
         "SELECT quarantine_file FROM ingests WHERE quarantine_file IS NOT NULL").fetchall()}

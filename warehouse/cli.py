@@ -11,7 +11,7 @@ import click
 import duckdb
 
 from warehouse import catalog, migrate as migrations
-from warehouse.render import render_mapping, render_rows
+from warehouse.render import render_check, render_mapping, render_rows
 from warehouse.errors import WarehouseError
 from warehouse.home import init_home, open_warehouse, resolve_home, writer
 
@@ -452,28 +452,28 @@ def status(ctx: Ctx, fmt: str) -> None:
 
 @cli.command()
 @click.option("--fix", is_flag=True, help="Delete orphan files and stale staging folders (never listed files).")
+@click.option("--deep", is_flag=True, help="Also re-read every file: row counts and checksums recorded at ingest.")
+@click.option("--repair", is_flag=True, help="With --deep: set damaged or missing files aside (damaged/) and drop"
+              " them from the catalog, so queries keep working; says what was lost.")
 @click.option("--format", "fmt", type=click.Choice(["table", "json"]), default="table", show_default=True)
 @pass_ctx
 @handle_errors
-def check(ctx: Ctx, fix: bool, fmt: str) -> None:
-    """Check that the catalog and the files on disk agree; list orphans.
+def check(ctx: Ctx, fix: bool, deep: bool, repair: bool, fmt: str) -> None:
+    """Check that the catalog and the files on disk agree; list orphans (--deep: damaged files).
 
     \b
     Example:
       warehouse --home ./wh check --fix
+      warehouse --home ./wh check --deep --repair
     """
-    with open_warehouse(ctx.home) as wh:
-        report = catalog.check(wh, fix=fix)
+    with open_warehouse(ctx.home, views=False) as wh:
+        report = catalog.check(wh, fix=fix, deep=deep, repair=repair)
     if fmt == "json":
         click.echo(render_mapping(report, "json"))
     else:
-        click.echo("ok: catalog and files agree" if report["ok"] else "problems found:")
-        for key in ("missing", "orphans", "stale_staging"):
-            for item in report[key]:
-                click.echo(f"  {key.replace('_', ' ')}: {item}")
-        if report["fixed"]:
-            click.echo("  orphans and stale staging folders deleted")
-    if report["missing"] or (not report["ok"] and not fix):
+        click.echo(render_check(report))
+    leftover = (report["orphans"] or report["stale_staging"]) and not fix
+    if report["missing"] or (report.get("damaged") and not repair) or leftover:
         sys.exit(1)
 
 

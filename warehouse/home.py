@@ -134,8 +134,12 @@ class Warehouse:
         self.close()
 
 
-def open_warehouse(home: str | os.PathLike[str] | None, *, read_only: bool = True) -> Warehouse:
-    """Open the warehouse at `home` (resolved as in resolve_home); read-only by default."""
+def open_warehouse(home: str | os.PathLike[str] | None, *, read_only: bool = True, views: bool = True) -> Warehouse:
+    """Open the warehouse at `home` (resolved as in resolve_home); read-only by default.
+
+    `views=False` gives the catalog tables alone, which reading no Parquet file cannot fail
+    (`warehouse check` must open a warehouse whose files are damaged).
+    """
     root = resolve_home(home)
     catalog = root / CATALOG
     if not catalog.exists():
@@ -146,11 +150,20 @@ def open_warehouse(home: str | os.PathLike[str] | None, *, read_only: bool = Tru
         con = _connect(catalog, read_only=False)
         migrate(con)
     try:
-        install(con, root, temporary=not read_only)
+        if views:
+            _install_views(con, root, read_only)
         return Warehouse(root, con, read_only=read_only)
     except Exception:
         con.close()
         raise
+
+
+def _install_views(con: duckdb.DuckDBPyConnection, root: Path, read_only: bool) -> None:
+    try:
+        install(con, root, temporary=not read_only)
+    except duckdb.Error as exc:
+        raise CatalogError(f"cannot read the warehouse's files ({' '.join(str(exc).split())[:400]}): run"
+                           f" `warehouse --home {root} check --deep` to find damaged or missing files") from exc
 
 
 def _snapshot(catalog: Path) -> duckdb.DuckDBPyConnection:

@@ -340,3 +340,20 @@ def render_trend(r: dict[str, Any]) -> str:
         lines += ["", "cautions:"] + [textwrap.fill(c, 98, initial_indent="  - ", subsequent_indent="    ")
                                       for c in r["cautions"]]
     return "\n".join(lines)
+
+
+def render_check(report: dict[str, Any]) -> str:
+    """`warehouse check`: one line per problem; with --deep the damaged files, with --repair what was lost."""
+    lines = ["ok: catalog and files agree" if report["ok"] else "problems found:"]
+    for key in ("missing", "orphans", "stale_staging"):
+        lines += [f"  {key.replace('_', ' ')}: {item}" for item in report[key]]
+    if report["fixed"]:
+        lines.append("  orphans and stale staging folders deleted")
+    if report.get("deep"):
+        lines += [f"  damaged: {d['relpath']} ({d['reason']})" for d in report["damaged"]]
+        lines += [textwrap.fill(f"repaired: {r['lost']}", 98, initial_indent="  ", subsequent_indent="    ")
+                  for r in report["repaired"]]
+        unverified = report["files_without_checksum"]
+        lines.append(f"deep check: {report['files_checked']} files re-read"
+                     + (f", {unverified} without a recorded checksum (row counts and decoding only)" if unverified else ""))
+    return "\n".join(lines)

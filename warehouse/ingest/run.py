@@ -20,7 +20,7 @@ from warehouse.ingest.keys import make_key, resolve_counters, source_id
 from warehouse.ingest.model import Batch, CounterName, WideBatch
 from warehouse.ingest.rates import RateState, is_cumulative, rates_for_batch
 from warehouse.ingest.read import FileReader
-from warehouse.ingest.write import PartitionWriter
+from warehouse.ingest.write import PartitionWriter, file_sha256
 
 
 @dataclass(frozen=True)
@@ -279,13 +279,14 @@ def _commit(home: Path, out: PartitionWriter, result: FileResult, digest: str, s
                 con.execute("DELETE FROM ingest_files WHERE ingest_id = ?", [oid])
                 con.execute("DELETE FROM ingests WHERE ingest_id = ?", [oid])
             con.execute(
-                "INSERT INTO ingests VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, now(), 'loaded', ?)",
+                "INSERT INTO ingests VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, now(), 'loaded', ?, ?)",
                 [result.ingest_id, src, str(Path(result.path).resolve()), digest, size, result.layout,
                  result.rows_read, result.rows_loaded, result.rows_quarantined, result.cells_quarantined,
-                 result.values_loaded, result.duplicates, _us_to_dt(out.first_ts), _us_to_dt(out.last_ts), started, qfile])
+                 result.values_loaded, result.duplicates, _us_to_dt(out.first_ts), _us_to_dt(out.last_ts), started, qfile,
+                 file_sha256(out.staging / qfile) if qfile else None])
             if out.files:
-                con.executemany("INSERT INTO ingest_files VALUES (?, ?, ?, ?, ?)",
-                                [[result.ingest_id, f.relpath, f.day, f.rows, f.bytes] for f in out.files])
+                con.executemany("INSERT INTO ingest_files VALUES (?, ?, ?, ?, ?, ?)",
+                                [[result.ingest_id, f.relpath, f.day, f.rows, f.bytes, f.sha256] for f in out.files])
             out.publish(extra)
             con.execute("COMMIT")
         except BaseException:

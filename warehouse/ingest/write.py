@@ -6,6 +6,7 @@ Batches are written on one background thread while the caller reads the next one
 """
 from __future__ import annotations
 
+import hashlib
 import os
 import shutil
 from collections import deque
@@ -49,6 +50,13 @@ class WrittenFile:
     day: str           # YYYY-MM-DD (UTC)
     rows: int
     bytes: int
+    sha256: str = ""   # of the file as written, for `warehouse check --deep`
+
+
+def file_sha256(path: Path) -> str:
+    """Checksum of a file just written (still in the page cache, so this costs little)."""
+    with open(path, "rb") as fh:
+        return hashlib.file_digest(fh, "sha256").hexdigest()
 
 
 def is_sorted(cid: np.ndarray, ts: np.ndarray) -> bool:
@@ -151,7 +159,7 @@ class PartitionWriter:
         ], schema=POINTS_SCHEMA)
         pq.write_table(table, target, compression=COMPRESSION, row_group_size=ROW_GROUP,
                        use_dictionary=DICTIONARY_COLUMNS, column_encoding=COLUMN_ENCODING)
-        self._files.append(WrittenFile(rel.as_posix(), date, len(cid), target.stat().st_size))
+        self._files.append(WrittenFile(rel.as_posix(), date, len(cid), target.stat().st_size, file_sha256(target)))
 
     def write_quarantine(self, path: str, rejects: list[Reject]) -> str | None:
         """Stage the quarantine rows of this ingest; returns their future relative path."""
