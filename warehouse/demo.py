@@ -82,7 +82,8 @@ def run_demo(home: Path, *, scale: str = "small", keep_csv: Path | None = None,
     yield ("Cautions: the Cantelli bound holds for any distribution, so it can sit above the observed peak;"
            " it describes the observed period only: repeat it on other periods before buying.")
     yield ""
-    yield from tell_story(home, report or home / "report.html")
+    from seed.generate import SCALES
+    yield from tell_story(home, report or home / "report.html", lead_bucket=f"{SCALES[scale].interval_s}s")
     yield ""
     yield f"Next: warehouse --home {home} counters '*latency*'"
 
@@ -124,8 +125,10 @@ def _longest(episodes: list[dict[str, Any]]) -> dict[str, Any]:
     return max(episodes, key=lambda e: (e["seconds"], e["peak"]))
 
 
-def tell_story(home: Path, report_path: Path) -> Iterator[str]:
-    """Run each analysis on the loaded scenario, write the report, yield the story line by line."""
+def tell_story(home: Path, report_path: Path, *, lead_bucket: str = "60s") -> Iterator[str]:
+    """Run each analysis on the loaded scenario, write the report, yield the story line by line.
+
+    `lead_bucket` is the sampling interval: a lead of a few samples shows only in buckets that short."""
     from warehouse.changes import ChangesRequest
     from warehouse.compare import CompareRequest
     from warehouse.correlate import CorrelateRequest
@@ -155,7 +158,7 @@ def tell_story(home: Path, report_path: Path) -> Iterator[str]:
         suspects = step(CorrelateRequest(HOST_CPU, start=(spell["start"] - timedelta(hours=1)).isoformat(),
                                          end=(spell["start"] + timedelta(hours=2)).isoformat()))
         yield f"   {suspects.reading[0]}"
-        lead = step(CorrelateRequest(READ_LATENCY, max_lag=5))
+        lead = step(CorrelateRequest(READ_LATENCY, bucket=lead_bucket, max_lag=5))
         yield f"3. what moves before the read latency: {lead.reading[0]}"
         destage = step(PatternRequest(WRITE_LATENCY, max_period="2h"))
         yield f"4. {destage.reading[0]}"
