@@ -157,7 +157,8 @@ def cli_command(job: dict) -> list[str]:
 def show(runs: dict[str, fx.Measured]) -> None:
     print(f"\n  {'alternative':12s} {'wall s':>8s} {'work s':>8s} {'cpu s':>7s} {'peak MiB':>9s} {'slowest':>8s}  result")
     for name, m in runs.items():
-        shown = {k: v for k, v in m.info.items() if k != "work_s"} if not m.error else m.error
+        shown = {k: len(v) if isinstance(v, list) else v for k, v in m.info.items()
+                 if k not in ("work_s", "out", "pdf")} if not m.error else m.error
         print(f"  {name:12s} {m.wall:8.2f} {fx.fmt(m.work):>8s} {m.cpu:7.2f} {m.peak_mib:9.0f} {m.spread:>8s}  {shown}")
     base = runs.get("analyses")
     if base and not base.error:

@@ -141,9 +141,12 @@ def test_plan_turns_options_into_analyses() -> None:
     plan = ReportPlan(selectors=("a/*", "b/*"), window="busiest-hours", suspects=("t",), max_lag=3,
                       pattern_selectors=("p",), trend_selectors=("w",), before="2026-W11", after="2026-W12",
                       changes_period="2026-W12")
-    kinds = [type(a).__name__ for a in plan.request().analyses]
+    analyses = plan.request().analyses
+    kinds = [type(a).__name__ for a in analyses]
     assert kinds == ["SizeRequest", "SizeRequest", "CorrelateRequest", "PatternRequest", "PatternRequest",
                      "PatternRequest", "TrendRequest", "CompareRequest", "CompareRequest", "ChangesRequest"]
+    combined = ReportPlan(trend_selectors=("one/counter", "many/*"), combine="sum").request().analyses
+    assert [t.combine for t in combined] == [None, "sum"]     # one counter's trend reads its weekly rollup
 
 
 def run(*args: str):

@@ -126,7 +126,9 @@ class ReportPlan:
                 for t in self.suspects]
         out += [PatternRequest(sel, self.start, self.end, self.bucket, max_period=self.max_period, combine=self.combine)
                 for sel in (*self.selectors, *self.pattern_selectors)]
-        out += [TrendRequest(sel, self.stat, self.capacity, self.combine) for sel in self.trend_selectors]
+        # --combine is meant for selectors naming several counters; one counter's trend reads its rollups.
+        out += [TrendRequest(sel, self.stat, self.capacity, self.combine if any(c in sel for c in "*?[") else None)
+                for sel in self.trend_selectors]
         if self.before and self.after:
             out += [CompareRequest(sel, self.before, self.after, self.window, self.days, self.busiest_hours,
                                    self.combine, self.bucket) for sel in self.selectors]
