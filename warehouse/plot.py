@@ -291,50 +291,11 @@ def _sequential() -> Any:
 def patterns_figure(result: dict[str, Any], series: Any, spectrum: Any) -> Any:
     """Periodogram with the reported periods, the weekday x hour heat map, and the series with
     episodes and level shifts marked."""
-    u = result["unit"] or ""
     fig = _new_figure(8.6)
     grid = fig.add_gridspec(3, 1, height_ratios=[2.2, 2.3, 2.6])
-    spec_ax, cal_ax, ser_ax = (fig.add_subplot(grid[i]) for i in range(3))
-    keep = spectrum.power > 0
-    spec_ax.loglog(spectrum.periods[keep], spectrum.power[keep], color=TEAL, lw=0.6)
-    spec_ax.invert_xaxis()
-    for p in result["periods"]:
-        spec_ax.axvline(p["seconds"], color=BRICK, lw=0.9, ls="--")
-        spec_ax.annotate(f"every {p['label']} ({p['strength']:.0%})", xy=(p["seconds"], 1.0),
-                         xycoords=("data", "axes fraction"), xytext=(3, -10), textcoords="offset points",
-                         fontsize=7, color=BRICK)
-    ticks = [s for s in (120, 600, 3600, 6 * 3600, 86400, 7 * 86400) if
-             spectrum.periods.min() <= s <= spectrum.periods.max()]
-    spec_ax.set_xticks(ticks, [format_duration(s) for s in ticks])
-    spec_ax.minorticks_off()
-    spec_ax.set_xlabel("period (longer to the left)")
-    spec_ax.set_ylabel(f"power ({u}² per Hz)" if u else "power")
-    spec_ax.set_title("periodogram (detrended, Hann taper); dashed: periods that passed the test", loc="left")
-    table = np.full((7, 24), np.nan)
-    for cell in result["calendar"]:
-        table[DAY_NAMES.index(cell["weekday"]), cell["hour"]] = cell["mean"]
-    image = cal_ax.imshow(table, aspect="auto", cmap=_sequential(), interpolation="nearest")
-    cal_ax.set_yticks(range(7), DAY_NAMES)
-    cal_ax.set_xticks(range(0, 24, 2), [f"{h:02d}" for h in range(0, 24, 2)])
-    cal_ax.set_xlabel(f"hour of day ({series.zone})")
-    cal_ax.grid(False)
-    cal_ax.set_title("mean by weekday and hour", loc="left")
-    fig.colorbar(image, ax=cal_ax, label=f"mean ({_unit_label(u)})", pad=0.01, fraction=0.04)
-    _draw_series(ser_ax, series.times, series.values, TEAL, "series")
-    ser_ax.axhline(result["threshold"], color=AMBER, lw=0.8, ls="--",
-                   label=f"episode threshold {_num(result['threshold'], u)} ({result['threshold_kind']})")
-    _shade(ser_ax, series.times, _episode_mask(series.times, result["episodes"]), result["bucket_seconds"] * 1_000_000,
-           AMBER, "episodes", alpha=0.35)
-    for k, c in enumerate(result["change_points"]):
-        ts = pd.Timestamp(c["ts"])
-        ser_ax.axvline(ts, color=BRICK, lw=1.2, label="level shift" if k == 0 else None)
-        ser_ax.annotate(f"{ts:%a %d %b %H:%M}\n{_num(c['before_mean'])} → {_num(c['after_mean'], u)}",
-                        xy=(ts, 0.0), xycoords=("data", "axes fraction"), xytext=(3, 4),
-                        textcoords="offset points", fontsize=7, color=BRICK)
-    ser_ax.set_ylabel(_unit_label(u))
-    _time_axis(ser_ax, series.zone)
-    ser_ax.legend(loc="upper left", ncols=4, frameon=True, facecolor="white", edgecolor=GRID)
-    ser_ax.set_ylim(top=float(np.nanmax(series.values)) * 1.15)
+    _periodogram_panel(fig.add_subplot(grid[0]), result, spectrum)
+    _calendar_panel(fig, fig.add_subplot(grid[1]), result, series.zone)
+    _episodes_panel(fig.add_subplot(grid[2]), result, series)
     found = ", ".join(f"every {p['label']}" for p in result["periods"]) or "no period passed the test"
     _title(fig, f"patterns {result['selector']}",
            f"{result['bucket_seconds']} s buckets: {found}; {len(result['episodes'])} episode(s);"
@@ -343,12 +304,65 @@ def patterns_figure(result: dict[str, Any], series: Any, spectrum: Any) -> Any:
     return fig
 
 
+def _periodogram_panel(ax: Any, result: dict[str, Any], spectrum: Any) -> None:
+    u = result["unit"] or ""
+    keep = spectrum.power > 0
+    ax.loglog(spectrum.periods[keep], spectrum.power[keep], color=TEAL, lw=0.6)
+    ax.invert_xaxis()
+    for k, p in enumerate(result["periods"]):   # labels stepped down so neighbouring periods stay readable
+        ax.axvline(p["seconds"], color=BRICK, lw=0.9, ls="--")
+        ax.annotate(f"every {p['label']} ({p['strength']:.0%})", xy=(p["seconds"], 1.0),
+                    xycoords=("data", "axes fraction"), xytext=(3, -10 - 10 * k), textcoords="offset points",
+                    fontsize=7, color=BRICK)
+    ticks = [s for s in (120, 600, 3600, 6 * 3600, 86400, 7 * 86400)
+             if spectrum.periods.min() <= s <= spectrum.periods.max()]
+    ax.set_xticks(ticks, [format_duration(s) for s in ticks])
+    ax.minorticks_off()
+    ax.set_xlabel("period (longer to the left)")
+    ax.set_ylabel(f"power ({u}² per Hz)" if u else "power")
+    ax.set_title("periodogram (detrended, Hann taper); dashed: periods that passed the test", loc="left")
+
+
+def _calendar_panel(fig: Any, ax: Any, result: dict[str, Any], zone: str) -> None:
+    table = np.full((7, 24), np.nan)
+    for cell in result["calendar"]:
+        table[DAY_NAMES.index(cell["weekday"]), cell["hour"]] = cell["mean"]
+    image = ax.imshow(table, aspect="auto", cmap=_sequential(), interpolation="nearest")
+    ax.set_yticks(range(7), DAY_NAMES)
+    ax.set_xticks(range(0, 24, 2), [f"{h:02d}" for h in range(0, 24, 2)])
+    ax.set_xlabel(f"hour of day ({zone})")
+    ax.grid(False)
+    ax.set_title("mean by weekday and hour", loc="left")
+    fig.colorbar(image, ax=ax, label=f"mean ({_unit_label(result['unit'] or '')})", pad=0.01, fraction=0.04)
+
+
+def _episodes_panel(ax: Any, result: dict[str, Any], series: Any) -> None:
+    u = result["unit"] or ""
+    _draw_series(ax, series.times, series.values, TEAL, "series")
+    ax.axhline(result["threshold"], color=AMBER, lw=0.8, ls="--",
+               label=f"episode threshold {_num(result['threshold'], u)} ({result['threshold_kind']})")
+    _shade(ax, series.times, _episode_mask(series.times, result["episodes"]), result["bucket_seconds"] * 1_000_000,
+           AMBER, "episodes", alpha=0.35)
+    for k, c in enumerate(result["change_points"]):
+        ts = pd.Timestamp(c["ts"])
+        ax.axvline(ts, color=BRICK, lw=1.2, label="level shift" if k == 0 else None)
+        ax.annotate(f"{ts:%a %d %b %H:%M}\n{_num(c['before_mean'])} → {_num(c['after_mean'], u)}",
+                    xy=(ts, 0.0), xycoords=("data", "axes fraction"), xytext=(3, 4 + 22 * (k % 3)),
+                    textcoords="offset points", fontsize=7, color=BRICK)
+    ax.set_ylabel(_unit_label(u))
+    _time_axis(ax, series.zone)
+    ax.legend(loc="upper left", ncols=4, frameon=True, facecolor="white", edgecolor=GRID)
+    ax.set_ylim(top=float(np.nanmax(series.values)) * 1.15)
+
+
 # -- trend ---------------------------------------------------------------------------------------------
 
 @_styled
 def trend_figure(result: dict[str, Any], lines: list[Any], most: int = 4) -> Any:
     """Weekly statistic per series, the Theil-Sen line with its slope interval as a band, the
     capacity, and the crossing week with its interval."""
+    import matplotlib.dates as mdates
+
     fig = _new_figure(3.8)
     ax = fig.add_subplot()
     colors = (TEAL, PLUM, MOSS, AMBER)
@@ -360,34 +374,11 @@ def trend_figure(result: dict[str, Any], lines: list[Any], most: int = 4) -> Any
         ax.plot(weeks[~tl.fitted], tl.values[~tl.fitted], "o", mfc="white", color=color, ms=4,
                 label="open or thin week (not fitted)" if (~tl.fitted).any() else None)
         fit = result["series"][k]["fit"]
-        if tl.line is None or fit is None:
-            continue
-        origin = pd.Timestamp(fit["first_week"])
-        end_x = (weeks.iloc[-1] - origin).days / 7 + 1
-        crossing = fit.get("crossing") or {}
-        if crossing.get("week_late") or crossing.get("week"):
-            last = crossing.get("week_late") or crossing.get("week")
-            end_x = max(end_x, (pd.Timestamp(last) - origin).days / 7 + 1)
-        xs = np.linspace(0, end_x, 60)
-        at = origin + pd.to_timedelta(xs * 7, unit="D")
-        ax.plot(at, [tl.line.at(x) for x in xs], color=color, lw=1.2)
-        low = [min(tl.line.at(x, tl.line.slope_low), tl.line.at(x, tl.line.slope_high)) for x in xs]
-        high = [max(tl.line.at(x, tl.line.slope_low), tl.line.at(x, tl.line.slope_high)) for x in xs]
-        ax.fill_between(at, low, high, color=color, alpha=0.15, lw=0,
-                        label=f"{tl.line.confidence:.0%} interval of the growth" if k == 0 else None)
-        if crossing.get("week"):
-            ax.axvline(pd.Timestamp(crossing["week"]), color=BRICK, lw=1, ls="--")
-            ax.annotate(f"reaches capacity in the week of {crossing['week']}", xy=(pd.Timestamp(crossing["week"]), 0.02),
-                        xycoords=("data", "axes fraction"), xytext=(3, 0), textcoords="offset points",
-                        fontsize=7, color=BRICK)
-        if crossing.get("week_early") and crossing.get("week_late"):
-            ax.axvspan(pd.Timestamp(crossing["week_early"]), pd.Timestamp(crossing["week_late"]), color=BRICK,
-                       alpha=0.08, lw=0)
+        if tl.line is not None and fit is not None:
+            _trend_line(ax, tl, fit, weeks, color, first=k == 0)
     if result["capacity"] is not None:
         ax.axhline(result["capacity"], color=BRICK, lw=1.3, label=f"capacity {_num(result['capacity'], unit)}")
     ax.set_ylabel(f"weekly {result['stat']} ({_unit_label(unit)})")
-    import matplotlib.dates as mdates
-
     ax.xaxis.set_major_formatter(mdates.DateFormatter("%d %b\n%Y"))
     ax.set_xlabel("week (the Monday it begins, warehouse zone)")
     ax.legend(loc="upper left")
@@ -398,6 +389,31 @@ def trend_figure(result: dict[str, Any], lines: list[Any], most: int = 4) -> Any
            "the line extrapolates these weeks; projects, migrations and seasons break it"
            if result["capacity"] is not None else "")
     return fig
+
+
+def _trend_line(ax: Any, tl: Any, fit: dict[str, Any], weeks: pd.Series, color: str, first: bool) -> None:
+    """The fitted line and its band, drawn on to the latest crossing week when there is one."""
+    origin = pd.Timestamp(fit["first_week"])
+    end_x = (weeks.iloc[-1] - origin).days / 7 + 1
+    crossing = fit.get("crossing") or {}
+    last = crossing.get("week_late") or crossing.get("week")
+    if last:
+        end_x = max(end_x, (pd.Timestamp(last) - origin).days / 7 + 1)
+    xs = np.linspace(0, end_x, 60)
+    at = origin + pd.to_timedelta(xs * 7, unit="D")
+    ax.plot(at, [tl.line.at(x) for x in xs], color=color, lw=1.2)
+    ends = np.array([[tl.line.at(x, tl.line.slope_low), tl.line.at(x, tl.line.slope_high)] for x in xs])
+    ax.fill_between(at, ends.min(axis=1), ends.max(axis=1), color=color, alpha=0.15, lw=0,
+                    label=f"{tl.line.confidence:.0%} interval of the growth" if first else None)
+    if crossing.get("week"):
+        week = pd.Timestamp(crossing["week"])
+        ax.axvline(week, color=BRICK, lw=1, ls="--")
+        ax.annotate(f"reaches capacity in the week of {crossing['week']}", xy=(week, 0.02),
+                    xycoords=("data", "axes fraction"), xytext=(3, 0), textcoords="offset points",
+                    fontsize=7, color=BRICK)
+    if crossing.get("week_early") and crossing.get("week_late"):
+        ax.axvspan(pd.Timestamp(crossing["week_early"]), pd.Timestamp(crossing["week_late"]), color=BRICK,
+                   alpha=0.08, lw=0)
 
 
 # -- compare and changes -------------------------------------------------------------------------------
