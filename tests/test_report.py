@@ -161,6 +161,12 @@ def test_cli_report(demo_home: Path, tmp_path: Path) -> None:
     written = json.loads(result.stdout)
     assert written["out"] == str(out) and [s["kind"] for s in written["sections"]] == ["size", "patterns"]
     assert out.read_text(encoding="utf-8").startswith("<!DOCTYPE html>")
+    table = run("--home", str(demo_home), "report", "san01/pool=vdi/read_iops", "--from", "2026-03-02",
+                "--to", "2026-03-03", "--max-period", "2h", "--out", str(out))
+    lines = table.stdout.splitlines()
+    assert lines[0].startswith(f"report written to {out} (") and "2 sections" in lines[0]
+    assert lines[1].startswith("  - At least 95% of the samples were at or below")
+    assert max(len(line) for line in lines) <= 100
 
 
 @pytest.mark.parametrize("args, message", [

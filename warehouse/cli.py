@@ -651,8 +651,9 @@ def report(ctx: Ctx, selectors: tuple[str, ...], out: Path, pdf: Path | None, fm
         return
     click.echo(f"report written to {written['out']} ({written['bytes']:,} bytes, {len(written['sections'])} sections,"
                f" {written['seconds']:.1f} s)" + (f"; PDF {written['pdf']}" if written["pdf"] else ""))
+    from textwrap import fill
     for s in written["sections"]:
-        click.echo(f"  - {s['reading']}")
+        click.echo(fill(s["reading"], 100, initial_indent="  - ", subsequent_indent="    "))
 
 
 def _check_plot(plot_file: Path | None) -> None:
