@@ -144,13 +144,18 @@ def _latent(spec: Spec):
     return z / z.std()
 
 
-def write_host_csv(spec: Spec, h: int, path: Path, latent) -> int:
-    """Stream one host's wide CSV in chunks of rows; returns the number of values written."""
+def write_host_csv(spec: Spec, h: int, path: Path, latent, *, first_row: int = 0, count: int | None = None,
+                   chunk_rows: int = CHUNK_ROWS) -> int:
+    """Stream one host's wide CSV in chunks of rows; returns the number of values written.
+
+    `first_row` and `count` write one slice of the time range (a collector's daily file, say);
+    `chunk_rows` bounds memory for very wide hosts (a chunk holds chunk_rows x columns values)."""
     import numpy as np
     import pyarrow as pa
     import pyarrow.csv as pacsv
 
-    rng = np.random.default_rng([spec.seed, h])
+    rng = np.random.default_rng([spec.seed, h] + ([first_row] if first_row else []))
+    end = spec.rows if count is None else min(spec.rows, first_row + count)
     names = spec.columns
     fam = [f for f in spec.families for _ in f.names()]
     m = len(names)
@@ -170,12 +175,12 @@ def write_host_csv(spec: Spec, h: int, path: Path, latent) -> int:
             j = names.index(planted[1])
             burst[j], shift[j] = amp * swing[j], lead
     start = np.datetime64(START, "s")
-    opts = pacsv.WriteOptions(include_header=False, quoting_style="none", batch_size=CHUNK_ROWS)
+    opts = pacsv.WriteOptions(include_header=False, quoting_style="none", batch_size=chunk_rows)
     written = 0
     with open(path, "wb") as fh:
         fh.write((",".join(["timestamp"] + names) + "\n").encode())
-        for first in range(0, spec.rows, CHUNK_ROWS):
-            rows = min(CHUNK_ROWS, spec.rows - first)
+        for first in range(first_row, end, chunk_rows):
+            rows = min(chunk_rows, end - first)
             idx = first + np.arange(rows)
             secs = idx * spec.interval
             day = 2 * np.pi * secs / 86_400.0
