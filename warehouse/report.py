@@ -189,7 +189,8 @@ def _size(wh: Warehouse, req: SizeRequest) -> Section:
     short, days = _short_days(series, r["mean"])
     if days:
         span = "busiest hours" if r["window"] == "busiest-hours" else "days"
-        reading.append(f"Sizing for the mean ({_num(r['mean'], u)}) would have left {short} of the {days} {span}"
+        how_many = f"every one of the {days}" if short == days else f"{short} of the {days}"
+        reading.append(f"Sizing for the mean ({_num(r['mean'], u)}) would have left {how_many} {span}"
                        " short: their highest bucket was above it.")
     if r["capacity"] is not None:
         reading.append(f"Against a capacity of {_num(r['capacity'], u)}: {r['above_capacity_fraction']:.1%} of the"
