@@ -177,7 +177,7 @@ def lab(home: Path, tmp_path: Path) -> Path:
     """Two counters at 5 min from Monday 2 March 2026 00:00 local to Wednesday 25 March 12:00 local."""
     start = datetime(2026, 3, 1, 23, tzinfo=timezone.utc)
     _load(home, _wide_csv(tmp_path / "a.csv", start, 23 * 24 + 12, 300,
-                          {"cpu_util": _noise(2), "disk_iops": _noise(3)}))
+                          {"cpu_util": _noise(2), "disk_queue": _noise(3)}))
     return home
 
 
@@ -201,7 +201,7 @@ def test_partial_week_is_open_until_later_data_closes_it(lab: Path, tmp_path: Pa
     assert not last["complete"] and last["n"] == (2 * 24 + 12) * 12 and last["expected_n"] == 167 * 12
     assert all(r["complete"] for (d, _), r in rows.items() if d < date(2026, 3, 23))
     _load(lab, _wide_csv(tmp_path / "b.csv", datetime(2026, 3, 25, 11, tzinfo=timezone.utc), 7 * 24, 300,
-                         {"cpu_util": _noise(4), "disk_iops": _noise(5)}))
+                         {"cpu_util": _noise(4), "disk_queue": _noise(5)}))
     summary = rollup(lab, RollupRequest(("week",), "due"))
     assert (summary[0]["first_period"], summary[0]["last_period"]) == (date(2026, 3, 23), date(2026, 3, 30))
     closed = {(r[0], r[1]): dict(zip(COLUMNS, r)) for r in _rows(lab)}[(date(2026, 3, 23), 1)]
