@@ -96,6 +96,19 @@ DESTAGE_PERIOD_S = 660                     # 11 minutes
 DESTAGE_DURATION_S = 120                   # 2 minutes
 DESTAGE_AMPLITUDE_MS = 4.0                 # added to write_latency_ms
 DESTAGE_FIRST_UTC = "2026-03-01T23:03:00Z"  # start + 3 min; then every DESTAGE_PERIOD_S
+# The office's own storage service levels (invented like everything here), written by `warehouse
+# demo` as the home's limits.toml: the destage pulses cross warn and critical, the base never does.
+SERVICE_LEVELS_TOML = """\
+# Quillbrook Mutual Claims, Tannerfield office: the storage service levels the desktop team agreed
+# with the array's owners (invented for the demo). `warehouse limits` reads this file first; the
+# shipped common-practice set follows it.
+[[limit]]
+counters = "san01/*/write_latency_ms"
+unit = "ms"
+warn = 3
+critical = 4.5
+direction = "above"
+"""
 WRITE_LAT_BASE_MS = 0.6
 WRITE_LAT_PER_QUEUE_MS = 0.05
 WRITE_LAT_SIGMA = 0.2

@@ -38,6 +38,12 @@ def test_demo_loads_everything_and_quarantines_exactly_the_planted_rows(tmp_path
     assert zone == "Europe/Berlin"
     check_headlines(result.output)
     check_report(home / "report.html", result.output)
+    # the office's own service levels (SCENARIO "Service levels") catch the destage pulses
+    assert (home / "limits.toml").read_text(encoding="utf-8") == scenario.SERVICE_LEVELS_TOML
+    limits = CliRunner().invoke(cli, ["--home", str(home), "limits", "*/write_latency_ms", "--period", "2026-W11",
+                                      "--format", "json"], catch_exceptions=False)
+    assert limits.exit_code == 0, limits.output
+    assert '"warn_share": 0.18' in limits.output and str(home / "limits.toml") in limits.output
     again = CliRunner().invoke(cli, ["--home", str(home), "demo"], catch_exceptions=False)
     assert again.exit_code == 0 and "(48 skipped as already loaded)" in again.output
     assert "weekly summaries already current" in again.output

@@ -47,7 +47,12 @@ def run_demo(home: Path, *, scale: str = "small", keep_csv: Path | None = None,
     """Yield the lines of the demo's story as it runs."""
     from seed.generate import generate
 
+    from seed.generate import SERVICE_LEVELS_TOML
+
     init_home(home, zone=DEMO_ZONE)
+    levels = home / "limits.toml"
+    if not levels.exists():   # the office's own service levels; a user's edited file is kept
+        levels.write_text(SERVICE_LEVELS_TOML, encoding="utf-8")
     with tempfile.TemporaryDirectory(prefix="warehouse-demo-") as tmp:
         out = keep_csv or Path(tmp)
         started = time.monotonic()
@@ -87,6 +92,8 @@ def run_demo(home: Path, *, scale: str = "small", keep_csv: Path | None = None,
     yield from tell_story(home, report or home / "report.html", lead_bucket=f"{SCALES[scale].interval_s}s")
     yield ""
     yield f"Next: warehouse --home {home} counters '*latency*'"
+    yield (f"      warehouse --home {home} limits --period 2026-W11"
+           f"   (the office's own levels: {home / 'limits.toml'})")
 
 
 def _table_lines(rows: list[dict], columns: list[str]) -> Iterator[str]:
