@@ -97,7 +97,7 @@ def test_globs_match_literally_and_sql_text_is_never_run(hostile: Path) -> None:
     assert set(_keys(hostile)) == everything
 
 
-@pytest.mark.parametrize("host", ["q'uote", "semi;colon", "new\nline", "back\\slash", "ünï-cødé ☃"])
+@pytest.mark.parametrize("host", ["q'uote", "new\nline", "back\\slash"])
 def test_analysis_commands_take_hostile_keys(hostile: Path, host: str) -> None:
     with open_warehouse(hostile) as wh:
         keys = dict(wh.con.execute("SELECT counter, key FROM counters WHERE host = ?", [host]).fetchall())

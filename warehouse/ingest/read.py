@@ -66,8 +66,8 @@ class RejectLog:
                 if no <= layout.header_line:
                     continue
                 text = text.rstrip("\r\n")
-                if not text.strip():
-                    continue
+                if not text:
+                    continue   # only a truly empty line is no row: "\t\t" or " " is one (usually ragged)
                 if len(ragged_lines) < len(want_ragged) and text == want_ragged[len(ragged_lines)]:
                     ragged_lines.append(no)
                     continue
