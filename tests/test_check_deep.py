@@ -171,3 +171,14 @@ def test_old_catalog_gains_the_checksum_columns(tmp_path: Path) -> None:
     assert json.loads(out.output)["files_checked"] == 0
     with open_warehouse(root) as wh:
         assert wh.con.execute("SELECT max(version) FROM schema_version").fetchone()[0] == 3
+
+
+def test_commands_over_a_damaged_file_fail_in_one_line_pointing_at_check(loaded: Path) -> None:
+    path = loaded / _files(loaded)[1][0]                 # not the first file a view names
+    data = bytearray(path.read_bytes())
+    data[-8:-4] = b"\xff\xff\xff\x0f"                     # the footer's length: the file cannot be opened
+    path.write_bytes(bytes(data))
+    for args in (["sql", "SELECT sum(value) FROM points"], ["size", "h1/cpu"]):
+        out = run("--home", str(loaded), *args)
+        assert out.exit_code == 1, args
+        assert out.stderr.count("\n") == 1 and "`warehouse check --deep` finds it" in out.stderr, out.stderr

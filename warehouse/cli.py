@@ -39,14 +39,28 @@ def handle_errors(fn: Callable[..., Any]) -> Callable[..., Any]:
         except WarehouseError as exc:
             raise click.ClickException(str(exc)) from exc
         except duckdb.Error as exc:
-            raise click.ClickException(" ".join(str(exc).split())) from exc
+            raise click.ClickException(_with_damage_hint(" ".join(str(exc).split()))) from exc
+        except OSError as exc:
+            # a Parquet file of the warehouse damaged on disk fails deep inside a reader
+            raise click.ClickException(_with_damage_hint(" ".join(str(exc).split()), always=True)) from exc
         except Exception as exc:
+            if type(exc).__module__.split(".")[0] == "pyarrow":   # ArrowInvalid and kin: a damaged file
+                raise click.ClickException(_with_damage_hint(" ".join(str(exc).split()), always=True)) from exc
             # --engine spark: a failed Spark job (py4j / pyspark errors) is one line too
             if type(exc).__module__.split(".")[0] not in ("pyspark", "py4j"):
                 raise
             first = next((line for line in str(exc).splitlines() if line.strip()), type(exc).__name__)
             raise click.ClickException(f"Spark: {first.strip()}") from exc
     return wrapper
+
+
+_DAMAGE_SIGNS = ("thrift", "parquet", "don't know what type", "no files found that match", "magic bytes")
+
+
+def _with_damage_hint(text: str, *, always: bool = False) -> str:
+    if always or any(sign in text.lower() for sign in _DAMAGE_SIGNS):
+        return f"{text} (a damaged or missing warehouse file? `warehouse check --deep` finds it)"
+    return text
 
 
 # -- commands ------------------------------------------------------------------------------------
