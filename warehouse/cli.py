@@ -42,10 +42,10 @@ def handle_errors(fn: Callable[..., Any]) -> Callable[..., Any]:
             raise click.ClickException(_with_damage_hint(" ".join(str(exc).split()))) from exc
         except OSError as exc:
             # a Parquet file of the warehouse damaged on disk fails deep inside a reader
-            raise click.ClickException(_with_damage_hint(" ".join(str(exc).split()), always=True)) from exc
+            raise click.ClickException(_with_damage_hint(" ".join(str(exc).split()))) from exc
         except Exception as exc:
             if type(exc).__module__.split(".")[0] == "pyarrow":   # ArrowInvalid and kin: a damaged file
-                raise click.ClickException(_with_damage_hint(" ".join(str(exc).split()), always=True)) from exc
+                raise click.ClickException(_with_damage_hint(" ".join(str(exc).split()))) from exc
             # --engine spark: a failed Spark job (py4j / pyspark errors) is one line too
             if type(exc).__module__.split(".")[0] not in ("pyspark", "py4j"):
                 raise
@@ -57,8 +57,8 @@ def handle_errors(fn: Callable[..., Any]) -> Callable[..., Any]:
 _DAMAGE_SIGNS = ("thrift", "parquet", "don't know what type", "no files found that match", "magic bytes")
 
 
-def _with_damage_hint(text: str, *, always: bool = False) -> str:
-    if always or any(sign in text.lower() for sign in _DAMAGE_SIGNS):
+def _with_damage_hint(text: str) -> str:
+    if any(sign in text.lower() for sign in _DAMAGE_SIGNS):
         return f"{text} (a damaged or missing warehouse file? `warehouse check --deep` finds it)"
     return text
 
