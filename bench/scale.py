@@ -115,8 +115,9 @@ def day_files(spec: fx.Spec, folder: Path, days: range, latent) -> list[Path]:
         path = folder / f"day-{d + 1:02d}.csv"
         t = time.perf_counter()
         fx.write_host_csv(spec, 0, path, latent, first_row=d * DAY_ROWS, count=DAY_ROWS, chunk_rows=chunk)
-        print(f"  generated {path.name}: {path.stat().st_size / 1e6:,.0f} MB in {time.perf_counter() - t:.0f} s",
-              end="\r", flush=True)
+        if d % 10 == 9 or d == days[-1]:
+            print(f"  generated {path.name}: {path.stat().st_size / 1e6:,.0f} MB in {time.perf_counter() - t:.0f} s",
+                  flush=True)
         paths.append(path)
     return paths
 
@@ -250,7 +251,9 @@ def print_profile(path: Path) -> None:
     import pstats
     if path.exists():
         print(f"\nprofile ({path}):")
-        pstats.Stats(str(path)).sort_stats("cumulative").print_stats(25)
+        stats = pstats.Stats(str(path))
+        stats.sort_stats("cumulative").print_stats(25)
+        stats.sort_stats("tottime").print_stats(15)
 
 
 # -- main -----------------------------------------------------------------------------------------
