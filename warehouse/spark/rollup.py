@@ -15,6 +15,7 @@ exact quantile's rank (Spark's documented relative error 1 / accuracy).
 from __future__ import annotations
 
 from datetime import date, datetime
+from pathlib import Path
 from typing import Any
 
 import pyarrow as pa
@@ -103,14 +104,13 @@ def _compute(spark: Any, wh: Warehouse, plan_: Plan, coverage: float, now: datet
 def _with_file_indexes(stats: pa.Table, index: dict[str, int]) -> pa.Table:
     """Replace the file URIs Spark reports by their positions in the plan's file list."""
     paths = stats.column("paths").combine_chunks()
-    flat = [index[str(_resolved(p))] for p in paths.flatten().to_pylist()]
-    files = pa.ListArray.from_arrays(paths.offsets, pa.array(flat, pa.int64()))
+    flat = [index[_resolved(p)] for p in paths.flatten().to_pylist()]
+    offsets = pc.subtract(paths.offsets, paths.offsets[0])      # a slice's offsets need not start at 0
+    files = pa.ListArray.from_arrays(offsets, pa.array(flat, pa.int64()))
     return stats.drop_columns(["paths"]).append_column("files", files)
 
 
 def _resolved(uri: str) -> str:
-    from pathlib import Path
-
     return str(Path(local_path(uri)).resolve())
 
 
