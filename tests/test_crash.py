@@ -74,18 +74,19 @@ def _kill_at(proc: subprocess.Popen, seconds: float) -> bool:
     return running
 
 
-def _clean_after_crash(home: Path) -> None:
+def _clean_after_crash(home: Path) -> dict:
     """What `warehouse check` must find after a kill: nothing missing or damaged; only orphans
     or staging left by the dead process, which --fix removes."""
     with open_warehouse(home, views=False) as wh:
         report = check(wh, fix=True, deep=True)
     assert not report["missing"] and not report["damaged"], report
+    return report
 
 
 @pytest.mark.slow
 def test_killed_ingest_then_rerun_loads_exactly_once(tmp_path: Path) -> None:
     csv = tmp_path / "big.csv"
-    _wide_csv(csv, rows=6_000, counters=60, bad_every=97)       # 25 h: two UTC days, and a quarantine file
+    _wide_csv(csv, rows=6_000, counters=120, bad_every=97)      # 25 h: two UTC days, and a quarantine file
     reference = tmp_path / "ref"
     init_home(reference)
     startup = _startup_seconds()
@@ -93,22 +94,28 @@ def test_killed_ingest_then_rerun_loads_exactly_once(tmp_path: Path) -> None:
     assert _ingest(reference, csv).wait() == 0
     duration = time.monotonic() - started
     full = _full_state(reference)
-    assert full[0] == 1 and full[3] == 63 and full[1] == (6_000 - 63) * 60   # 21 bad rows per block of 2,000
+    assert full[0] == 1 and full[3] == 63 and full[1] == (6_000 - 63) * 120   # 21 bad rows per block of 2,000
     empty = (0, 0, 0, 0)
     rng = random.Random(11)
     interrupted = 0
+    phases: dict[str, int] = {}
     for trial in range(TRIALS):
         home = tmp_path / f"trial{trial}"
         init_home(home)
-        interrupted += _kill_at(_ingest(home, csv), rng.uniform(0.6 * startup, duration))
-        _clean_after_crash(home)
-        assert _full_state(home) in {empty, full}, f"partial state visible after kill {trial}"
+        interrupted += _kill_at(_ingest(home, csv), rng.uniform(0.8 * startup, 0.9 * duration))
+        report = _clean_after_crash(home)
+        seen = _full_state(home)
+        assert seen in {empty, full}, f"partial state visible after kill {trial}"
+        phase = ("committed" if seen == full else "moved, not committed" if report["orphans"]
+                 else "writing" if report["stale_staging"] else "before writing")
+        phases[phase] = phases.get(phase, 0) + 1
         (again,) = ingest_files(home, [csv], IngestOptions(host="h"))
         assert again.status in {"loaded", "skipped"}, again.message
         assert _full_state(home) == full
         with open_warehouse(home, views=False) as wh:
             assert check(wh, deep=True)["ok"]
-    assert interrupted >= TRIALS // 2, f"only {interrupted} kills landed while the ingest ran"
+    print(f"ingest: {interrupted} of {TRIALS} kills landed while it ran ({duration:.1f} s uninterrupted): {phases}")
+    assert interrupted >= TRIALS // 3, f"only {interrupted} kills landed while the ingest ran"
 
 
 def _rollup_rows(home: Path) -> dict[str, list[tuple]]:
@@ -148,10 +155,11 @@ def test_killed_rollup_then_rerun_equals_an_uninterrupted_run(tmp_path: Path) ->
     interrupted = 0
     for trial in range(TRIALS):
         _forget_rollups(home)
-        interrupted += _kill_at(_command(home, *ROLLUP_ARGS), rng.uniform(0.6 * startup, duration))
+        interrupted += _kill_at(_command(home, *ROLLUP_ARGS), rng.uniform(0.8 * startup, 0.9 * duration))
         _clean_after_crash(home)
         assert _rollup_rows(home) in (empty, full), f"partial rollup visible after kill {trial}"
         assert _state(home) == points                          # queries work and see the same points
         rollup(home, RollupRequest(("day", "week", "month"), "all"))
         assert _rollup_rows(home) == full
-    assert interrupted >= TRIALS // 2, f"only {interrupted} kills landed while the rollup ran"
+    print(f"rollup: {interrupted} of {TRIALS} kills landed while it ran ({duration:.1f} s uninterrupted)")
+    assert interrupted >= TRIALS // 3, f"only {interrupted} kills landed while the rollup ran"
