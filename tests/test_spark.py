@@ -18,6 +18,7 @@ from click.testing import CliRunner
 
 from warehouse.cli import cli
 from warehouse.home import open_warehouse
+from warehouse.render import render_rollup
 from warehouse.rollup import RollupRequest, rollup
 from warehouse.spark.session import spark_available
 
@@ -60,7 +61,9 @@ def rolled(spark, demo_home: Path, tmp_path_factory: pytest.TempPathFactory) -> 
     for home in homes.values():
         shutil.copytree(demo_home, home)
     req = RollupRequest(KINDS, "all")
-    summaries = {"duckdb": rollup(homes["duckdb"], req), "spark": rollup(homes["spark"], req, compute=compute_plan(spark))}
+    job = compute_plan(spark)
+    summaries = {"duckdb": rollup(homes["duckdb"], req), "spark": rollup(homes["spark"], req, compute=job)}
+    assert job.approximate == [] and job.cautions("week") == []      # the demo's periods take the exact path
     for a, b in zip(summaries["duckdb"], summaries["spark"]):
         assert {k: v for k, v in a.items() if k != "seconds"} == {k: v for k, v in b.items() if k != "seconds"}
     return homes
@@ -122,7 +125,11 @@ def test_spark_approximate_quantiles_stay_within_the_stated_rank_error(spark, de
     home = tmp_path / "approx"
     shutil.copytree(demo_home, home)
     # a limit below the weeks' sizes: the engine counts the largest group, then takes the approximate path
-    rollup(home, RollupRequest(("week",), "since", "2026-03-16"), compute=compute_plan(spark, limit=1000))
+    job = compute_plan(spark, limit=1000)
+    (summary,) = rollup(home, RollupRequest(("week",), "since", "2026-03-16"), compute=job)
+    assert job.approximate == ["week"]
+    line = render_rollup([dict(summary, cautions=job.cautions("week"))]).splitlines()[-1]
+    assert line.startswith("caution: p50, p95 and p99 of these week rows are approximate (Spark's percentile_approx")
     with open_warehouse(home) as wh:
         rows = wh.con.execute("SELECT counter_id, period_start, n, p50, p95, p99 FROM rollup_week"
                               " WHERE period_start >= DATE '2026-03-16'").fetchall()

@@ -59,5 +59,7 @@ def rollup(home: Path, req: RollupRequest, engine: Engine) -> list[dict[str, Any
     from warehouse.rollup import rollup as run
     if engine.spark:
         from warehouse.spark.rollup import compute_plan
-        return run(home, req, compute=compute_plan(engine.session()))
+        compute = compute_plan(engine.session())
+        summaries = run(home, req, compute=compute)
+        return [dict(s, cautions=compute.cautions(s["period"])) for s in summaries]
     return run(home, req)

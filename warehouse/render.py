@@ -284,7 +284,8 @@ def render_rollup(summaries: list[dict[str, Any]]) -> str:
         parts.append(f"{s['period']}: {s['periods']} period(s) {span}, {s['rows']} rows"
                      + (f", {s['incomplete_rows']} still open" if s["incomplete_rows"] else ""))
     took = summaries[0]["seconds"] if summaries else 0.0
-    return f"rollup --{summaries[0]['mode']}: " + "; ".join(parts) + f" ({took:.1f} s)"
+    cautions = "".join(f"\ncaution: {c}" for s in summaries for c in s.get("cautions", []))
+    return f"rollup --{summaries[0]['mode']}: " + "; ".join(parts) + f" ({took:.1f} s)" + cautions
 
 
 def _week_words(c: dict[str, Any] | None, horizon: int) -> str:

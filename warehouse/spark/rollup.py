@@ -22,7 +22,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from warehouse.home import Warehouse
-from warehouse.rollup import ROWS_SQL, ComputePlan, Plan, files_for, hour_shift_us, period_bounds, rows_params
+from warehouse.rollup import ROWS_SQL, Plan, files_for, hour_shift_us, period_bounds, rows_params
 from warehouse.spark.points import local_path, moments_sql, read_points
 
 EXACT_QUANTILE_POINTS = 5_000_000
@@ -61,13 +61,28 @@ def quantile_sql(exact: bool) -> str:
             else f"percentile_approx(value, {QUANTILES}, {APPROX_ACCURACY})")
 
 
-def compute_plan(spark: Any, *, exact: bool | None = None,
-                 limit: int = EXACT_QUANTILE_POINTS) -> ComputePlan:
+class PlanOnSpark:
     """A rollup `compute` (see warehouse.rollup.rollup) that runs on `spark`. `exact` forces the
-    quantile path; by default it is exact when no (counter, period) holds more than `limit` points."""
-    def compute(wh: Warehouse, plan_: Plan, coverage: float, now: datetime) -> list[pa.Table]:
-        return _compute(spark, wh, plan_, coverage, now, exact, limit)
-    return compute
+    quantile path; by default it is exact when no (counter, period) holds more than `limit` points.
+    It remembers which period kinds took the approximate path, to say so beside the figures."""
+
+    def __init__(self, spark: Any, *, exact: bool | None = None, limit: int = EXACT_QUANTILE_POINTS) -> None:
+        self.spark, self.exact, self.limit = spark, exact, limit
+        self.approximate: list[str] = []
+
+    def __call__(self, wh: Warehouse, plan_: Plan, coverage: float, now: datetime) -> list[pa.Table]:
+        return _compute(self, wh, plan_, coverage, now)
+
+    def cautions(self, kind: str) -> list[str]:
+        if kind not in self.approximate:
+            return []
+        return [f"p50, p95 and p99 of these {kind} rows are approximate (Spark's percentile_approx: an observed"
+                f" value whose rank is within n/{APPROX_ACCURACY:,} of the exact quantile's), because a counter's"
+                f" {kind} held more than {self.limit:,} points; trends and sizes read from them inherit that."]
+
+
+def compute_plan(spark: Any, *, exact: bool | None = None, limit: int = EXACT_QUANTILE_POINTS) -> PlanOnSpark:
+    return PlanOnSpark(spark, exact=exact, limit=limit)
 
 
 def _largest_group(spark: Any, period_of: str, zone: str) -> int:
@@ -77,8 +92,8 @@ def _largest_group(spark: Any, period_of: str, zone: str) -> int:
     return int(spark.sql(sql.format(period_of=period_of), args={"zone": zone}).first()["most"])
 
 
-def _compute(spark: Any, wh: Warehouse, plan_: Plan, coverage: float, now: datetime, exact: bool | None,
-             limit: int) -> list[pa.Table]:
+def _compute(job: PlanOnSpark, wh: Warehouse, plan_: Plan, coverage: float, now: datetime) -> list[pa.Table]:
+    spark, exact, limit = job.spark, job.exact, job.limit
     bounds = {s: period_bounds(plan_.kind, s, wh.zone) for s in plan_.starts}
     files = sorted({f for lo, hi in bounds.values() for f in files_for(wh, lo, hi)})
     if not files:
@@ -93,6 +108,8 @@ def _compute(spark: Any, wh: Warehouse, plan_: Plan, coverage: float, now: datet
     if exact is None:
         # Every group fits when all the points read do; otherwise count the largest group first.
         exact = sum(r for _, _, r in files) <= limit or _largest_group(spark, period_of, wh.zone) <= limit
+    if not exact:
+        job.approximate.append(plan_.kind)
     sql = _STATS_SQL.format(period_of=period_of, moments=moments_sql("value"), quantiles=quantile_sql(exact))
     stats = spark.sql(sql, args={"zone": wh.zone}).toArrow()
     if not stats.num_rows:
