@@ -4,8 +4,9 @@ The work happens in three steps, so that queries and ingests are never held up b
 1. a rollup lock (a file lock of its own) lets one rollup run at a time; a second waits up to
    $WAREHOUSE_LOCK_WAIT seconds, then says the warehouse is busy, naming the holder;
 2. the statistics are computed from a read-only snapshot of the catalog, one period and one block
-   of counters per query (memory bounded by POINTS_PER_QUERY points), reading only the day
-   partitions that overlap the period;
+   of counters per query (memory bounded by POINTS_PER_QUERY points per query), reading only the
+   day partitions that overlap the period; QUERY_THREADS queries run at once, each on its own
+   connection and on one DuckDB thread, so the rows are bit-identical from run to run;
 3. one short catalog transaction deletes the periods recomputed and inserts their rows, and
    records the ingests taken in. A rollup killed before that commit changes nothing.
 """
@@ -13,8 +14,10 @@ from __future__ import annotations
 
 import math
 import os
+import threading
 import time
 from collections.abc import Callable, Iterator
+from concurrent.futures import ThreadPoolExecutor
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from datetime import date, datetime, timedelta, timezone
@@ -31,6 +34,9 @@ from warehouse.sql import quote_literal
 
 PERIODS = ("day", "week", "month")
 POINTS_PER_QUERY = 16_000_000
+# Queries run at once. Each runs on one DuckDB thread, so its sums meet in one fixed order and the
+# rows are the same bit for bit in every run; the parallelism comes from running several.
+QUERY_THREADS = min(2, os.cpu_count() or 1)
 LOCK_FILE = "rollup.lock"
 DEFAULT_COVERAGE = 0.95
 COLUMNS = ("period_start", "counter_id", "n", "expected_n", "mean", "sd", "min", "max", "p50", "p95", "p99",
@@ -193,7 +199,9 @@ def _coverage(wh: Warehouse) -> float:
 
 def _horizons(wh: Warehouse) -> None:
     """Per counter, the latest time its source has loaded: a period ending later is still open."""
-    wh.con.execute("""CREATE OR REPLACE TEMP TABLE rollup_horizon AS
+    # A table of the in-memory snapshot, not a TEMP one: the other connections of the same
+    # database (one per concurrent query) see it too.
+    wh.con.execute("""CREATE OR REPLACE TABLE rollup_horizon AS
         SELECT d.counter_id, epoch_us(max(i.last_ts)) AS horizon_us
         FROM counter_defs d JOIN ingests i USING (source_id) GROUP BY d.counter_id""")
 
@@ -271,9 +279,9 @@ def rows_params(start: date, lo: datetime, hi: datetime, *, coverage: float, now
             "k": math.sqrt(coverage / (1 - coverage)), "coverage": coverage, "now": now, "ingests": ingests}
 
 
-def compute_period(wh: Warehouse, kind: str, start: date, *, coverage: float, now: datetime,
-                   budget: int = POINTS_PER_QUERY) -> list[pa.Table]:
-    """The rows of one period, one Arrow table per block of counters."""
+def period_queries(wh: Warehouse, kind: str, start: date, *, coverage: float, now: datetime,
+                   budget: int = POINTS_PER_QUERY) -> list[tuple[str, dict[str, Any]]]:
+    """The queries (SQL, parameters) that give the rows of one period, one per block of counters."""
     lo, hi = period_bounds(kind, start, wh.zone)
     files = _files_for(wh, lo, hi)
     if not files:
@@ -283,14 +291,44 @@ def compute_period(wh: Warehouse, kind: str, start: date, *, coverage: float, no
     params: dict[str, Any] = {
         "lo": lo, "hi": hi, "shift_us": hour_shift_us(lo, wh.zone),
         **rows_params(start, lo, hi, coverage=coverage, now=now, ingests=[i for _, i, _ in files])}
-    out = []
-    blocks = _counter_blocks(wh, sum(r for _, _, r in files), budget)
+    return [(sql, dict(params, cid_lo=cid_lo, cid_hi=cid_hi))
+            for cid_lo, cid_hi in _counter_blocks(wh, sum(r for _, _, r in files), budget)]
+
+
+def run_queries(wh: Warehouse, queries: list[tuple[str, dict[str, Any]]],
+                threads: int | None = None) -> list[pa.Table]:
+    """Run the queries, `threads` at a time on connections of their own; tables in query order.
+
+    Each connection runs its query on one DuckDB thread (the caller sets `threads = 1`), so a
+    query's result does not depend on what runs beside it."""
+    threads = QUERY_THREADS if threads is None else threads
     wh.con.complete()   # sql() refuses to start while an execute() result is still open
-    for cid_lo, cid_hi in blocks:
-        table = wh.con.sql(sql, params=dict(params, cid_lo=cid_lo, cid_hi=cid_hi)).to_arrow_table()
-        if table.num_rows:
-            out.append(table)
-    return out
+    if threads <= 1 or len(queries) <= 1:
+        tables = [wh.con.sql(sql, params=params).to_arrow_table() for sql, params in queries]
+    else:
+        local = threading.local()
+        cursors = []
+
+        def run(query: tuple[str, dict[str, Any]]) -> pa.Table:
+            con = getattr(local, "con", None)
+            if con is None:
+                con = local.con = wh.con.cursor()
+                cursors.append(con)
+            return con.sql(query[0], params=query[1]).to_arrow_table()
+
+        try:
+            with ThreadPoolExecutor(threads) as pool:
+                tables = list(pool.map(run, queries))
+        finally:
+            for con in cursors:
+                con.close()
+    return [t for t in tables if t.num_rows]
+
+
+def compute_period(wh: Warehouse, kind: str, start: date, *, coverage: float, now: datetime,
+                   budget: int = POINTS_PER_QUERY) -> list[pa.Table]:
+    """The rows of one period, one Arrow table per block of counters."""
+    return run_queries(wh, period_queries(wh, kind, start, coverage=coverage, now=now, budget=budget))
 
 
 # -- writing -----------------------------------------------------------------------------------------
@@ -332,9 +370,9 @@ ComputePlan = Callable[[Warehouse, Plan, float, datetime], list[pa.Table]]
 
 def compute_plan(wh: Warehouse, plan_: Plan, coverage: float, now: datetime, *,
                  budget: int = POINTS_PER_QUERY) -> list[pa.Table]:
-    """Every period of a plan, with DuckDB."""
-    return [t for s in plan_.starts
-            for t in compute_period(wh, plan_.kind, s, coverage=coverage, now=now, budget=budget)]
+    """Every period of a plan, with DuckDB (QUERY_THREADS queries at a time)."""
+    return run_queries(wh, [q for s in plan_.starts
+                            for q in period_queries(wh, plan_.kind, s, coverage=coverage, now=now, budget=budget)])
 
 
 def rollup(home: Path, req: RollupRequest, *, budget: int = POINTS_PER_QUERY,
@@ -351,8 +389,9 @@ def rollup(home: Path, req: RollupRequest, *, budget: int = POINTS_PER_QUERY,
         t0 = time.perf_counter()
         now = datetime.now(timezone.utc)
         with open_warehouse(home) as wh:
-            # One thread: parallel partial sums meet in any order and change the last bits of
-            # mean and sd from run to run; the same rollup must give bit-identical rows.
+            # One thread per query: parallel partial sums meet in any order and change the last
+            # bits of mean and sd from run to run; the same rollup must give bit-identical rows.
+            # Several queries run at once instead (run_queries).
             wh.con.execute("SET threads = 1")
             coverage = _coverage(wh)
             _horizons(wh)
