@@ -82,11 +82,31 @@ def test_blocks_and_combine_follow_the_reference(demo_home: Path, monkeypatch: p
         ids = all_ids(wh)
         lo, hi = series.time_range(wh, ids, None, None)
         grid = series.grid_for(lo, hi, 600)
-        want = reference(wh, ids, grid)
-        for threads in (1, 2):
+        order = sorted(ids)                   # blocks come in increasing counter id
+        want = reference(wh, order, grid)
+        reads: list[tuple[str, int]] = []
+        reduce_file = series._reduce_file
+
+        def counted(path, meta, groups, *rest):
+            reads.extend((str(path), g) for g in groups)
+            return reduce_file(path, meta, groups, *rest)
+
+        monkeypatch.setattr(series, "_reduce_file", counted)
+        # window: every row group read once, the columns of later blocks carried;
+        # runs (a window too large): no carry, row groups shared by two blocks read by both
+        for threads, size, window in ((1, 7, series.WINDOW_CELLS), (2, 7, series.WINDOW_CELLS), (2, 1, 1),
+                                      (2, None, series.WINDOW_CELLS), (1, 3, 1)):
             monkeypatch.setattr(series, "READ_THREADS", threads)
-            got = np.concatenate([b for _, b in series.blocks(wh, ids, grid, size=7)], axis=1)
-            assert_same(got, want)
+            monkeypatch.setattr(series, "WINDOW_CELLS", window)
+            reads.clear()
+            parts = list(series.blocks(wh, ids, grid, size=size))
+            assert [c for part, _ in parts for c in part] == order
+            assert all(b.shape == (grid.n, len(part)) and b.flags.f_contiguous for part, b in parts)
+            assert_same(np.concatenate([b for _, b in parts], axis=1), want)
+            if window > 1:
+                assert len(reads) == len(set(reads))
+            else:
+                assert len(reads) > len(set(reads))
         same_unit = [r[0] for r in wh.con.execute(
             "SELECT counter_id FROM counters WHERE counter = 'write_iops' ORDER BY key").fetchall()]
         assert len(same_unit) >= 2

@@ -16,7 +16,7 @@ import pandas as pd
 from warehouse.catalog import match_counters
 from warehouse.errors import WarehouseError
 from warehouse.home import Warehouse
-from warehouse.series import BLOCK_COUNTERS, Grid, blocks, combine, grid_for, select, user_range
+from warehouse.series import Grid, blocks, combine, grid_for, select, user_range
 from warehouse.stats import correlate as cs
 from warehouse.stats.rhythm import hour_of_week, remove_rhythm
 from warehouse.timeutil import format_duration, parse_duration
@@ -156,7 +156,7 @@ def _cautions(y: np.ndarray, grid: Grid) -> list[str]:
 def correlate_pairs(wh: Warehouse, req: CorrelateRequest) -> dict[str, Any]:
     """The strongest pairs among the against counters (lag 0), BH over every pair tested."""
     _check(req)
-    ids = _against(wh, req, set())
+    ids = _against(wh, req, set())   # sorted by counter id, the order blocks() yields
     if len(ids) < 2:
         raise WarehouseError("--pairs needs at least two counters")
     lo, hi = _range(wh, req, ids)
@@ -164,8 +164,10 @@ def correlate_pairs(wh: Warehouse, req: CorrelateRequest) -> dict[str, Any]:
     slots = _slots(grid, wh.zone) if req.rhythm == "remove" else None
     with tempfile.TemporaryDirectory(prefix="warehouse-pairs-") as tmp:
         matrix = np.lib.format.open_memmap(f"{tmp}/x.npy", mode="w+", dtype=np.float64, shape=(grid.n, len(ids)))
-        for start, (part, block) in zip(range(0, len(ids), BLOCK_COUNTERS), blocks(wh, ids, grid)):
+        start = 0
+        for part, block in blocks(wh, ids, grid):   # blocks come in increasing id, like `ids`
             matrix[:, start:start + len(part)] = _prepare(block, req.method, slots)
+            start += len(part)
         scan = cs.top_pairs(matrix, req.top, min_overlap=req.min_overlap)
         pairs, tested = scan.pairs, scan.tested
         r1 = cs.lag1_autocorrelation(matrix)

@@ -225,29 +225,205 @@ def _epoch_us(value: object) -> int:
     return int(value)  # type: ignore[call-overload]
 
 
-def _reduce_file(path: Path, meta: pq.FileMetaData | None, groups: list[int], column: np.ndarray, first: int,
-                 grid: Grid) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
-    """Sum and count per (column, bucket) cell of one file: flat cell index, sums, counts.
+# Largest (counters x buckets) window one file is reduced into at once (float64 sums + counts).
+WINDOW_CELLS = 1 << 21
+# Bytes of bucket means in one block when the caller leaves the block width to the reader.
+BLOCK_BYTES = 160 << 20
+MAX_BLOCK_COUNTERS = 4096
 
-    The file is sorted by (counter_id, ts) and `column` maps ids to columns in increasing order,
-    so the cell index is non-decreasing and each cell is one run: np.add.reduceat sums the runs
-    without a hash table."""
+
+def block_width(grid: Grid, size: int | None = None) -> int:
+    """Counters per block: `size`, else as many as BLOCK_BYTES of means hold (at least BLOCK_COUNTERS)."""
+    if size is not None:
+        return max(1, size)
+    return int(min(MAX_BLOCK_COUNTERS, max(BLOCK_COUNTERS, BLOCK_BYTES // (8 * max(grid.n, 1)))))
+
+
+@dataclass(frozen=True)
+class _Window:
+    """Sums and counts of one file over scan columns [c0, c0 + rows) and buckets [b0, b0 + cols)."""
+
+    c0: int
+    b0: int
+    sums: np.ndarray      # (rows, cols)
+    counts: np.ndarray    # (rows, cols)
+
+    @property
+    def c1(self) -> int:
+        return self.c0 + self.sums.shape[0]
+
+
+@dataclass(frozen=True)
+class _Runs:
+    """Sums and counts of one file per flat cell ((column - p0) * grid.n + bucket), cells increasing."""
+
+    cells: np.ndarray
+    sums: np.ndarray
+    counts: np.ndarray
+
+
+def _reduce_file(path: Path, meta: pq.FileMetaData | None, groups: list[int], column: np.ndarray, first: int,
+                 grid: Grid, p0: int, p1: int,
+                 stats: list[tuple[int, int, int, int]] | None = None) -> _Window | _Runs | None:
+    """Sums and counts per (column, bucket) cell of the rows of some row groups of one file.
+
+    `column` maps counter ids (from `first`) to scan columns, -1 for ids not asked for. The block
+    being built holds columns [p0, p1). A file usually covers a short stretch of time for many
+    counters, so its cells fit a small dense window (columns x buckets) that one np.bincount pass
+    sums, whatever the row order; the window keeps the columns after p1 too (the next blocks take
+    them, so these row groups are never read again). A file whose window would be large falls
+    back to runs of the block's columns only: the file is sorted by (counter_id, ts) and columns
+    increase with ids, so each cell is one run of rows and np.add.reduceat sums the runs.
+
+    `stats` (the groups' id and time ranges) spare passes over the rows: when every row is known
+    to be wanted, no mask is built and the window's corners come from the statistics."""
     table = pq.ParquetFile(path, metadata=meta).read_row_groups(groups, columns=["counter_id", "ts", "value"],
                                                                 use_threads=False)
-    cid = table.column("counter_id").to_numpy().astype(np.int64, copy=False)
+    if not table.num_rows:
+        return None
+    cid = table.column("counter_id").to_numpy()
     ts = table.column("ts").cast(pa.int64()).to_numpy()
     value = table.column("value").to_numpy()
-    col = column[np.clip(cid - first, 0, len(column) - 1)]
-    keep = (col >= 0) & (cid >= first) & (cid < first + len(column)) & (ts >= grid.start_us) & (ts < grid.end_us)
-    if not keep.all():
-        col, ts, value = col[keep], ts[keep], value[keep]
+    known = stats is not None and all(-(2**62) < st[0] and st[3] < 2**62 for st in stats)
+    if known:
+        lo, hi = min(st[0] for st in stats), max(st[1] for st in stats)
+        t0, t1 = min(st[2] for st in stats), max(st[3] for st in stats)
+    else:
+        lo, hi = int(cid.min()), int(cid.max())
+        t0, t1 = int(ts.min()), int(ts.max())
+    # ids in [lo, hi] -> scan columns (-1 for ids not asked for, and for columns before the block)
+    lut = np.full(hi - lo + 1, -1, dtype=np.int64)
+    a, b = max(lo, first), min(hi, first + len(column) - 1)
+    if b >= a:
+        lut[a - lo:b - lo + 1] = column[a - first:b - first + 1]
+    lut[lut < p0] = -1
+    wanted = lut[lut >= 0]
+    if not len(wanted):
+        return None
+    c0, c1 = int(wanted.min()), int(wanted.max()) + 1
+    b0 = max(0, (t0 - grid.start_us) // grid.bucket_us)
+    b1 = min(grid.n, (t1 - grid.start_us) // grid.bucket_us + 1)
+    rows, cols = c1 - c0, b1 - b0
+    if rows <= 0 or cols <= 0:
+        return None
+    if rows * cols <= WINDOW_CELLS:
+        every = len(wanted) == len(lut) and t0 >= grid.start_us and t1 < grid.end_us
+        # cell = (column - c0) * cols + (bucket - b0), from a table of (column - c0) * cols by id
+        base = np.where(lut >= 0, (lut - c0) * cols, -1)
+        cell = base[cid - lo] if lo else base[cid]
+        bucket = ts - (grid.start_us + b0 * grid.bucket_us)
+        bucket //= grid.bucket_us
+        if not every:
+            keep = (cell >= 0) & (bucket >= 0) & (bucket < cols)
+            cell, bucket, value = cell[keep], bucket[keep], value[keep]
+        cell += bucket
+        sums = np.bincount(cell, weights=value, minlength=rows * cols).reshape(rows, cols)
+        counts = np.bincount(cell, minlength=rows * cols).reshape(rows, cols)
+        return _Window(c0, b0, sums, counts)
+    col = lut[cid - lo] if lo else lut[cid]
+    bucket = (ts - grid.start_us) // grid.bucket_us
+    keep = (col >= 0) & (col < p1) & (bucket >= 0) & (bucket < grid.n)
+    col, bucket, value = col[keep], bucket[keep], value[keep]
     if not len(col):
         return None
-    cell = col * grid.n + (ts - grid.start_us) // grid.bucket_us
+    cell = (col - p0) * grid.n + bucket
+    if len(cell) > 1 and not bool((cell[1:] >= cell[:-1]).all()):
+        order = np.argsort(cell, kind="stable")        # a file not sorted by (counter, time)
+        cell, value = cell[order], value[order]
     starts = np.flatnonzero(np.concatenate(([True], cell[1:] != cell[:-1])))
-    sums = np.add.reduceat(value, starts)
-    counts = np.diff(np.append(starts, len(cell))).astype(np.int32)
-    return cell[starts], sums, counts
+    return _Runs(cell[starts], np.add.reduceat(value, starts), np.diff(np.append(starts, len(cell))))
+
+
+class _Scan:
+    """Bucket means of a set of counters, built one block of columns at a time in counter-id order.
+
+    A row group usually holds the end of one block's counters and the start of the next's. It is
+    read once: the columns beyond the current block are kept, reduced, in `carry` until their
+    block comes. (A file reduced as runs keeps no carry, and its row groups are read again.)"""
+
+    def __init__(self, wh: Warehouse, ids: list[int] | np.ndarray, grid: Grid, files: _Files | None = None) -> None:
+        self.files = files or _Files.of(wh)
+        self.grid = grid
+        self.ids = np.unique(np.asarray(ids, dtype=np.int64))   # scan column j holds self.ids[j]
+        self.first = int(self.ids[0]) if len(self.ids) else 0
+        self.column = np.full(int(self.ids[-1]) - self.first + 1 if len(self.ids) else 0, -1, dtype=np.int64)
+        self.column[self.ids - self.first] = np.arange(len(self.ids))
+        self.done: set[tuple[str, int]] = set()
+        self.carry: list[_Window] = []
+
+    def block(self, p0: int, p1: int) -> np.ndarray:
+        """Means of scan columns [p0, p1), shape (grid.n, p1 - p0) column-major; call in order."""
+        grid, files = self.grid, self.files
+        width = p1 - p0
+        sums = np.zeros((width, grid.n))
+        counts = np.zeros((width, grid.n), dtype=np.int32)
+        flat_sums, flat_counts = sums.reshape(-1), counts.reshape(-1)
+        kept: list[_Window] = []
+
+        def add(part: _Window | _Runs | None) -> None:
+            if part is None:
+                return
+            if isinstance(part, _Window):
+                a, b = max(part.c0, p0), min(part.c1, p1)
+                if b > a:
+                    cols = part.sums.shape[1]
+                    sums[a - p0:b - p0, part.b0:part.b0 + cols] += part.sums[a - part.c0:b - part.c0]
+                    counts[a - p0:b - p0, part.b0:part.b0 + cols] += part.counts[a - part.c0:b - part.c0]
+                if part.c1 > p1:    # columns of later blocks: keep them (counts as int32)
+                    start = max(p1, part.c0) - part.c0
+                    kept.append(_Window(part.c0 + start, part.b0, part.sums[start:].copy(),
+                                        part.counts[start:].astype(np.int32)))
+                return
+            cell, s, c = part.cells, part.sums, part.counts
+            # Regular samples give long runs of consecutive cells (one per counter in the file):
+            # add each run as a slice, a plain vector add; otherwise scatter (cells are distinct).
+            breaks = np.flatnonzero(np.diff(cell) != 1) + 1
+            if len(breaks) * 64 < len(cell):
+                bounds = np.concatenate(([0], breaks, [len(cell)])).tolist()
+                first_cells = cell[bounds[:-1]].tolist()
+                for k0, i, j in zip(first_cells, bounds[:-1], bounds[1:]):
+                    flat_sums[k0:k0 + j - i] += s[i:j]
+                    flat_counts[k0:k0 + j - i] += c[i:j]
+            else:
+                flat_sums[cell] += s
+                flat_counts[cell] += c
+
+        for part in self.carry:
+            add(part)
+        self.carry = []
+        work = []
+        for rel, groups in files.wanted(_Selection(self.ids[p0:p1]), grid):
+            fresh = [g for g in groups if (rel, g) not in self.done]
+            if fresh:
+                work.append((rel, fresh))
+        jobs = [(files.home / rel, files.meta.get(rel), groups, [files.stats(rel)[g] for g in groups])
+                for rel, groups in work]
+
+        def reduce(job: tuple[Path, pq.FileMetaData | None, list[int], list[tuple[int, int, int, int]]]
+                   ) -> _Window | _Runs | None:
+            path, meta, groups, stats = job
+            return _reduce_file(path, meta, groups, self.column, self.first, grid, p0, p1, stats)
+
+        if len(jobs) > 1 and READ_THREADS > 1:
+            with ThreadPoolExecutor(READ_THREADS) as pool:
+                parts = pool.map(reduce, jobs)
+                for (rel, groups), part in zip(work, parts):
+                    add(part)
+                    if not isinstance(part, _Runs):
+                        self.done.update((rel, g) for g in groups)
+        else:
+            for (rel, groups), job in zip(work, jobs):
+                part = reduce(job)
+                add(part)
+                if not isinstance(part, _Runs):
+                    self.done.update((rel, g) for g in groups)
+        self.carry = kept
+        empty = counts == 0
+        np.divide(sums, counts, out=sums, where=~empty)
+        sums[empty] = np.nan
+        # Column-major (each counter's buckets contiguous): no transposing copy, and the layout
+        # the correlation and rank code read fastest.
+        return sums.T
 
 
 def bucket_block(wh: Warehouse, ids: list[int], grid: Grid, files: _Files | None = None) -> np.ndarray:
@@ -260,64 +436,33 @@ def bucket_block(wh: Warehouse, ids: list[int], grid: Grid, files: _Files | None
     reduced to per-bucket sums and counts in NumPy; no grouping query runs."""
     if not ids:
         return np.empty((grid.n, 0))
-    files = files or _Files.of(wh)
-    order = np.argsort(np.asarray(ids, dtype=np.int64), kind="stable")
-    sorted_ids = np.asarray(ids, dtype=np.int64)[order]
-    first = int(sorted_ids[0])
-    # counter id -> position among the sorted ids (-1 for ids not asked for)
-    column = np.full(int(sorted_ids[-1]) - first + 1, -1, dtype=np.int64)
-    column[sorted_ids - first] = np.arange(len(ids))
-    sums = np.zeros(len(ids) * grid.n)
-    counts = np.zeros(len(ids) * grid.n, dtype=np.int32)
-    work = files.wanted(_Selection(sorted_ids), grid)
-
-    def add(part: tuple[np.ndarray, np.ndarray, np.ndarray] | None) -> None:
-        if part is None:
-            return
-        cell, s, c = part
-        # Regular samples give long runs of consecutive cells (one per counter in the file): add
-        # each run as a slice, which is a plain vector add. Otherwise scatter with np.add.at, which
-        # is exact even when cells repeat (rows not sorted: a file not written by us).
-        breaks = np.flatnonzero(np.diff(cell) != 1) + 1
-        if len(breaks) * 64 < len(cell):
-            bounds = np.concatenate(([0], breaks, [len(cell)])).tolist()
-            first_cells = cell[bounds[:-1]].tolist()
-            for k0, i, j in zip(first_cells, bounds[:-1], bounds[1:]):
-                sums[k0:k0 + j - i] += s[i:j]
-                counts[k0:k0 + j - i] += c[i:j]
-        elif len(cell) > 1 and not bool((cell[1:] > cell[:-1]).all()):
-            np.add.at(sums, cell, s)
-            np.add.at(counts, cell, c)
-        else:
-            sums[cell] += s
-            counts[cell] += c
-
-    jobs = [(files.home / rel, files.meta.get(rel), groups) for rel, groups in work]
-    if len(jobs) > 1 and READ_THREADS > 1:
-        with ThreadPoolExecutor(READ_THREADS) as pool:
-            for part in pool.map(lambda job: _reduce_file(*job, column, first, grid), jobs):
-                add(part)
-    else:
-        for job in jobs:
-            add(_reduce_file(*job, column, first, grid))
-    empty = counts == 0
-    np.divide(sums, counts, out=sums, where=~empty)
-    sums[empty] = np.nan
-    means = sums.reshape(len(ids), grid.n)       # one row per counter, in id order
-    if not bool((order == np.arange(len(ids))).all()):
-        means = means[np.argsort(order)]          # rows back in the order asked for
-    # Returned column-major (each counter's buckets contiguous): no transposing copy, and the
-    # layout the correlation and rank code read fastest.
-    return means.T
+    scan = _Scan(wh, ids, grid, files)
+    means = scan.block(0, len(scan.ids))
+    asked = np.asarray(ids, dtype=np.int64)
+    if len(asked) == len(scan.ids) and bool((asked == scan.ids).all()):
+        return means
+    return np.asfortranarray(means[:, np.searchsorted(scan.ids, asked)])   # columns in the order asked
 
 
 def blocks(wh: Warehouse, ids: list[int], grid: Grid,
-           size: int = BLOCK_COUNTERS) -> Iterator[tuple[list[int], np.ndarray]]:
-    """Aligned bucket means for `ids`, a block of counters at a time."""
-    files = _Files.of(wh)
-    for lo in range(0, len(ids), size):
-        part = ids[lo:lo + size]
-        yield part, bucket_block(wh, part, grid, files)
+           size: int | None = None) -> Iterator[tuple[list[int], np.ndarray]]:
+    """Aligned bucket means of `ids`, a block of counters at a time, in increasing counter id.
+
+    Blocks hold `size` counters, or by default as many as BLOCK_BYTES of means allow. While the
+    caller works on one block the next is read on a thread of its own (the reading waits on
+    Parquet decoding and NumPy, which release the GIL), so reading and computing overlap."""
+    scan = _Scan(wh, ids, grid) if len(ids) else None
+    if scan is None:
+        return
+    width = block_width(grid, size)
+    spans = [(p, min(p + width, len(scan.ids))) for p in range(0, len(scan.ids), width)]
+    with ThreadPoolExecutor(1) as reader:
+        ahead = reader.submit(scan.block, *spans[0])
+        for k, (p0, p1) in enumerate(spans):
+            block = ahead.result()
+            if k + 1 < len(spans):
+                ahead = reader.submit(scan.block, *spans[k + 1])
+            yield scan.ids[p0:p1].tolist(), block
 
 
 @dataclass(frozen=True)
