@@ -25,6 +25,11 @@ import time
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
+# Imported before NumPy anywhere: on a processor where `warehouse` chooses NumPy's sort code
+# (warehouse/_cpu.py), this process and every child it starts (ours and the alternatives alike)
+# run with the same choice, through the inherited environment.
+import warehouse  # noqa: E402,F401
+
 HERE = Path(__file__).resolve().parent
 OUT = HERE / "out"
 FIXTURE_VERSION = 4  # 3: row groups of 32 Ki rows; 4: delta-encoded times, LZ4
