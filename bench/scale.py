@@ -6,6 +6,7 @@ Usage (from the project root, in the venv):
     python bench/scale.py                   # 16,000 counters x 30 days x 15 s: 2.76 billion values
     python bench/scale.py --scale 0.01      # 160 counters x 30 days: a few minutes, for quick checks
     python bench/scale.py --scale 0.01 --profile ingest     # also: where the ingest's time goes
+                                            # (py-spy over every thread when on PATH, else cProfile)
     python bench/scale.py --only correlate,pairs --keep     # reuse the warehouse of an earlier --keep run
 
 The full run writes ~15 GB of CSV and ~11 GB of Parquet under bench/out/ (it checks the free space
@@ -36,7 +37,6 @@ import argparse
 import json
 import math
 import shutil
-import subprocess
 import sys
 import time
 from pathlib import Path
@@ -125,8 +125,16 @@ def day_files(spec: fx.Spec, folder: Path, days: range, latent) -> list[Path]:
 # -- children -------------------------------------------------------------------------------------
 
 def warehouse_cmd(home: Path, args: list[str], profile: Path | None) -> list[str]:
-    runner = ["-m", "cProfile", "-o", str(profile)] if profile else []
-    return [sys.executable, *runner, "-m", "warehouse", "--home", str(home), "-q", *args]
+    """The step's command; with `profile`, under a sampling profiler of every thread (py-spy, when
+    on PATH: the reader and the ranks work on threads, which cProfile does not see), else cProfile."""
+    cmd = [sys.executable, "-m", "warehouse", "--home", str(home), "-q", *args]
+    if profile is None:
+        return cmd
+    spy = shutil.which("py-spy")
+    if spy:
+        return [spy, "record", "--format", "raw", "--rate", "50", "--output", str(profile.with_suffix(".spy")),
+                "--", *cmd]
+    return [sys.executable, "-m", "cProfile", "-o", str(profile), *cmd[1:]]
 
 
 def child_blas(job: dict) -> dict:
@@ -247,8 +255,36 @@ def notes(name: str, m: fx.Measured) -> str:
     return ""
 
 
+PLUMBING = ("threading.py", "concurrent/futures", "<frozen runpy>", "click/", "warehouse/__main__.py",
+            "warehouse/cli.py")
+
+
+def print_sampled(path: Path, top: int = 25) -> None:
+    """Share of busy samples (waits left out) per function, inclusive, over every thread."""
+    from collections import Counter
+    inclusive: Counter[str] = Counter()
+    busy = 0
+    for line in path.read_text().splitlines():
+        stack, _, count = line.rpartition(" ")
+        frames = stack.split(";")
+        if not frames or any(w in frames[-1] for w in ("wait (", "acquire", "_wait_for_tstate_lock")):
+            continue
+        busy += int(count)
+        for name in {f.split(" (")[0] + " (" + f.split(" (")[-1].split(":")[0] + ")" for f in frames if " (" in f}:
+            if not any(frame in name for frame in PLUMBING):
+                inclusive[name] += int(count)
+    print(f"\nsampled profile ({path}, {busy} busy samples over all threads; share inclusive of callees;"
+          " the profiled step's wall, peak and cpu above are the profiler's own, not comparable):")
+    for name, n in inclusive.most_common(top):
+        print(f"  {100 * n / max(busy, 1):5.1f}%  {name}")
+
+
 def print_profile(path: Path) -> None:
     import pstats
+    sampled = path.with_suffix(".spy")
+    if sampled.exists():
+        print_sampled(sampled)
+        return
     if path.exists():
         print(f"\nprofile ({path}):")
         stats = pstats.Stats(str(path))
@@ -265,7 +301,8 @@ def parse_args(argv: list[str] | None = None) -> argparse.Namespace:
     ap.add_argument("--days", type=int, default=30, help="days of data (default 30)")
     ap.add_argument("--only", default=",".join(STEPS), help=f"subset of {', '.join(STEPS)}")
     ap.add_argument("--per-day", action="store_true", help="generate and load one day at a time (less disk)")
-    ap.add_argument("--profile", choices=[s for s in STEPS if s != "blas"], help="run this step under cProfile")
+    ap.add_argument("--profile", choices=[s for s in STEPS if s != "blas"],
+                    help="profile this step: py-spy over all threads when on PATH, else cProfile")
     ap.add_argument("--keep", action="store_true", help="keep the warehouse (a later --only run without ingest reuses it)")
     ap.add_argument("--keep-csv", action="store_true", help="keep the generated CSV files")
     ap.add_argument("--out", type=Path, default=fx.OUT)

@@ -340,7 +340,9 @@ def run_child(name: str, cmd: list[str], result: Path, stdout_to_result: bool = 
     elif not result.exists() or not result.stat().st_size:
         m.error = "no result"
     else:
-        m.info = json.loads(result.read_text())
+        # a profiler wrapping the command (bench/scale.py --profile) prints its own lines too
+        text = "\n".join(line for line in result.read_text().splitlines() if not line.startswith("py-spy> "))
+        m.info = json.loads(text)
     return m
 
 
