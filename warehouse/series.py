@@ -13,11 +13,13 @@ a counter is one run of rows whose sum NumPy takes in one pass (np.add.reduceat)
 from __future__ import annotations
 
 import os
-from collections.abc import Iterator
-from concurrent.futures import ThreadPoolExecutor
+from collections import deque
+from collections.abc import Callable, Iterator
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
 from datetime import datetime, timezone
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pyarrow as pa
@@ -334,6 +336,20 @@ def _reduce_file(path: Path, meta: pq.FileMetaData | None, groups: list[int], co
     return _Runs(cell[starts], np.add.reduceat(value, starts), np.diff(np.append(starts, len(cell))))
 
 
+def _in_order(pool: ThreadPoolExecutor, fn: Callable[[Any], Any], items: list[Any], ahead: int) -> Iterator[Any]:
+    """fn over items on the pool, results in order, at most `ahead` submitted and not yet taken.
+
+    (Executor.map submits every item at once, so finished results pile up while the caller is
+    slower than the workers: a block's whole file list of windows in memory.)"""
+    pending: deque[Future[Any]] = deque()
+    for item in items:
+        if len(pending) >= ahead:
+            yield pending.popleft().result()
+        pending.append(pool.submit(fn, item))
+    while pending:
+        yield pending.popleft().result()
+
+
 class _Scan:
     """Bucket means of a set of counters, built one block of columns at a time in counter-id order.
 
@@ -406,7 +422,7 @@ class _Scan:
 
         if len(jobs) > 1 and READ_THREADS > 1:
             with ThreadPoolExecutor(READ_THREADS) as pool:
-                parts = pool.map(reduce, jobs)
+                parts: Iterator[_Window | _Runs | None] = _in_order(pool, reduce, jobs, 2 * READ_THREADS)
                 for (rel, groups), part in zip(work, parts):
                     add(part)
                     if not isinstance(part, _Runs):
