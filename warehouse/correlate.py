@@ -105,9 +105,11 @@ def correlate_target(wh: Warehouse, req: CorrelateRequest) -> dict[str, Any]:
     skipped = 0
     for part, block in blocks(wh, ids, grid):
         X = _prepare(block, req.method, slots)
+        del block                   # the ranks replace the means (the next block is being read)
         lagged = cs.lagged_corr(y, X, req.max_lag)
         r = np.where(lagged.n >= req.min_overlap, lagged.r, np.nan)
         n_eff = cs.bretherton_n_eff(lagged.n, cs.lag1_autocorrelation(X)[None, :], r1y)
+        del X
         p = cs.p_values(r, n_eff)
         all_p.append(p.ravel())
         valid = np.isfinite(r).any(axis=0)
