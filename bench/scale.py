@@ -305,10 +305,7 @@ def parse_args(argv: list[str] | None = None) -> argparse.Namespace:
                     help="profile this step: py-spy over all threads when on PATH, else cProfile")
     ap.add_argument("--keep", action="store_true", help="keep the warehouse (a later --only run without ingest reuses it)")
     ap.add_argument("--keep-csv", action="store_true", help="keep the generated CSV files")
-    ap.add_argument("--out", type=Path, default=fx.OUT)
-    ap.add_argument("--child", help=argparse.SUPPRESS)
-    ap.add_argument("--job", help=argparse.SUPPRESS)
-    ap.add_argument("--result", help=argparse.SUPPRESS)
+    fx.child_options(ap, ("blas",))
     return ap.parse_args(argv)
 
 
@@ -317,10 +314,7 @@ def main(argv: list[str] | None = None) -> None:
     if args.child:
         child_main(args)
         return
-    only = [s.strip() for s in args.only.split(",") if s.strip()]
-    unknown = set(only) - set(STEPS)
-    if unknown:
-        raise SystemExit(f"unknown step(s) {', '.join(sorted(unknown))}: choose from {', '.join(STEPS)}")
+    only = fx.pick(args.only, STEPS, "step")
     spec = spec_for(args.scale, args.days)
     work = args.out / f"scale-{spec.slug()}"
     home = work / "wh"

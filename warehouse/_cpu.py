@@ -46,14 +46,15 @@ def _numpy_at_least(major: int, minor: int) -> bool:
 
 def prefer_avx2_sorting(environ: MutableMapping[str, str], cpuinfo_path: str = "/proc/cpuinfo") -> bool:
     """Set NPY_DISABLE_CPU_FEATURES for a Zen 4 processor before NumPy loads; True when set."""
-    if VARIABLE in environ or "numpy" in sys.modules or not _numpy_at_least(2, 4):
+    if VARIABLE in environ or "numpy" in sys.modules:
         return False
     try:
         with open(cpuinfo_path, encoding="utf-8", errors="replace") as f:
             info = f.read(1 << 16)
     except OSError:
         return False
-    if not is_zen4(info):
+    # the package metadata lookup costs more than reading the file: only on a Zen 4
+    if not is_zen4(info) or not _numpy_at_least(2, 4):
         return False
     environ[VARIABLE] = AVX512_TARGETS
     return True

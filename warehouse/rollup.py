@@ -325,12 +325,6 @@ def run_queries(wh: Warehouse, queries: list[tuple[str, dict[str, Any]]],
     return [t for t in tables if t.num_rows]
 
 
-def compute_period(wh: Warehouse, kind: str, start: date, *, coverage: float, now: datetime,
-                   budget: int = POINTS_PER_QUERY) -> list[pa.Table]:
-    """The rows of one period, one Arrow table per block of counters."""
-    return run_queries(wh, period_queries(wh, kind, start, coverage=coverage, now=now, budget=budget))
-
-
 # -- writing -----------------------------------------------------------------------------------------
 
 def _store(con: Any, plan_: Plan, rows: pa.Table | None) -> None:

@@ -420,18 +420,12 @@ class _Scan:
             path, meta, groups, stats = job
             return _reduce_file(path, meta, groups, self.column, self.first, grid, p0, p1, stats)
 
-        if len(jobs) > 1 and READ_THREADS > 1:
-            with ThreadPoolExecutor(READ_THREADS) as pool:
-                parts: Iterator[_Window | _Runs | None] = _in_order(pool, reduce, jobs, 2 * READ_THREADS)
-                for (rel, groups), part in zip(work, parts):
-                    add(part)
-                    if not isinstance(part, _Runs):
-                        self.done.update((rel, g) for g in groups)
-        else:
-            for (rel, groups), job in zip(work, jobs):
-                part = reduce(job)
+        threads = READ_THREADS if len(jobs) > 1 else 1
+        with ThreadPoolExecutor(threads) as pool:
+            parts = _in_order(pool, reduce, jobs, 2 * threads) if threads > 1 else map(reduce, jobs)
+            for (rel, groups), part in zip(work, parts):
                 add(part)
-                if not isinstance(part, _Runs):
+                if not isinstance(part, _Runs):   # runs keep no carry: their row groups are read again
                     self.done.update((rel, g) for g in groups)
         self.carry = kept
         empty = counts == 0
